@@ -1,0 +1,76 @@
+"""The ``surfcross`` program: parse, call the library, print, map errors to exit codes.
+
+Exit codes: 0 converged/finished, 1 ran but did not converge (or an engine failure),
+2 bad input or usage. No science lives here.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import sys
+
+from ..errors import InputError, SurfcrossError
+
+__all__ = ["main", "build_parser", "SUBCOMMANDS"]
+
+#: subcommand modules under surfcross.cli; each defines ``add_parser(subparsers)`` which
+#: registers the subcommand with ``set_defaults(handler=run)``, and ``run(args) -> int``.
+SUBCOMMANDS = ("states",)
+
+EXIT_OK, EXIT_NOT_CONVERGED, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # one line, exit code 2
+        self.exit(EXIT_BAD_INPUT, f"surfcross: error: {message} (see 'surfcross -h')\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="surfcross",
+        description="Excited-state minima and minimum-energy crossing points on PySCF surfaces.",
+    )
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="more output")
+    parser.add_argument("-q", "--quiet", action="store_true", help="only errors and the summary")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in SUBCOMMANDS:
+        module = importlib.import_module(f"{__package__}.{name.replace('-', '_')}")
+        module.add_parser(sub)
+    return parser
+
+
+def _configure_logging(verbose: int, quiet: bool) -> None:
+    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 1 else logging.INFO)
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("%(message)s"))
+    root = logging.getLogger("surfcross")
+    root.handlers[:] = [handler]
+    root.setLevel(level)
+    root.propagate = False
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "handler", None):
+        parser.print_help(sys.stderr)
+        return EXIT_BAD_INPUT
+    _configure_logging(args.verbose, args.quiet)
+    try:
+        return int(args.handler(args))
+    except InputError as exc:
+        print(f"surfcross: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except SurfcrossError as exc:
+        print(f"surfcross: failed: {exc}", file=sys.stderr)
+        return EXIT_NOT_CONVERGED
+    except KeyboardInterrupt:
+        print("surfcross: interrupted; 'surfcross resume DIR' continues from the checkpoint",
+              file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
