@@ -59,6 +59,9 @@ class StepRecord:
     evaluations: int = 0
     elapsed_s: float = 0.0
     message: str = ""
+    #: optimizer + objective state needed to resume from this step (Hessian, trust radius,
+    #: objective.state_dict(), ...); written to the checkpoint by the run directory observer
+    resume_state: Mapping[str, Any] = field(default_factory=dict)
 
     @property
     def converged(self) -> bool:
