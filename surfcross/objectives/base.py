@@ -91,6 +91,9 @@ class ObjectiveValue:
         The tracking record of this geometry (None without tracking).
     info
         Small JSON-able extras for logs and checkpoints (sigma, roots followed, ...).
+    reject_step
+        True when the objective asks the optimizer to treat this trial geometry as rejected
+        (e.g. the followed state changed character abruptly): shrink the step and retry.
     """
 
     value: float
@@ -105,6 +108,7 @@ class ObjectiveValue:
     evaluation: Any = None
     tracking: Any = None
     info: Mapping[str, Any] = field(default_factory=dict)
+    reject_step: bool = False
 
     @property
     def merit_value(self) -> float:
