@@ -17,6 +17,7 @@ __all__ = [
     "HARTREE_IN_WAVENUMBER",
     "EV_NM",
     "AMU_IN_ELECTRON_MASS",
+    "AU_FREQUENCY_IN_WAVENUMBER",
     "ev_to_nm",
     "nm_to_ev",
     "hartree_to_ev",
@@ -33,6 +34,14 @@ HARTREE_IN_WAVENUMBER: float = _c.physical_constants["hartree-inverse meter rela
 #: E[eV] * lambda[nm] = EV_NM
 EV_NM: float = _c.h * _c.c / _c.e * 1e9
 AMU_IN_ELECTRON_MASS: float = _c.physical_constants["atomic mass constant"][0] / _c.m_e
+
+
+#: sqrt(Eh / (bohr^2 amu)) expressed as a wavenumber in cm^-1 (harmonic frequencies)
+AU_FREQUENCY_IN_WAVENUMBER: float = (
+    (_c.physical_constants["Hartree energy"][0]
+     / (_c.physical_constants["Bohr radius"][0] ** 2 * _c.physical_constants["atomic mass constant"][0])) ** 0.5
+    / (2.0 * _c.pi * _c.c * 100.0)
+)
 
 
 def hartree_to_ev(energy_eh: float) -> float:
