@@ -1,0 +1,376 @@
+"""Shared machinery of the crossing searches: one evaluation of a tracked pair of states.
+
+Every crossing objective (penalty, projected, spin) does the same work at a geometry:
+
+1. ``engine.states`` (energies and wavefunctions, no gradients);
+2. the pair tracker decides which two adiabatic roots carry the followed pair;
+3. ``engine.gradients`` for both roots (and their coupling vector h when the engine has
+   couplings and the search wants it);
+4. lower/upper are labelled **by energy** at this geometry; x1 = g_upper - g_lower,
+   gbar = (g_lower + g_upper)/2, gap = E_upper - E_lower >= 0;
+5. rigid translations/rotations are removed from every vector (an option: model engines with
+   one or two pseudo-atoms are not rotation invariant and switch it off).
+
+Conventions: full-difference x1 inside the searches (as in the gradient-projection and
+spin-crossing literature); the characterization in :mod:`surfcross.analysis.branching` uses
+the half difference g = x1/2.
+"""
+
+from __future__ import annotations
+
+import abc
+import logging
+from dataclasses import dataclass
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from ..engine.base import Engine, Evaluation
+from ..errors import InputError
+from ..geometry import Geometry
+from ..states import StateLabel, parse_states
+
+__all__ = [
+    "GAP_TOLERANCES",
+    "PairEvaluation",
+    "PairEvaluator",
+    "external_basis",
+    "remove_external",
+    "pair_warnings",
+    "LIMITS_NOTE",
+]
+
+log = logging.getLogger(__name__)
+
+#: gap tolerances (Eh) of the crossing presets; 1e-3 Eh is the degeneracy threshold used by
+#: Ruiz-Barragan, Robb, Blancafort (J. Chem. Theory Comput. 2013), 1e-4 our tight choice
+GAP_TOLERANCES = {"default": 1e-3, "tight": 1e-4}
+
+LIMITS_NOTE = ("Crossing points from single-reference response methods (CIS/TDA/TDDFT) are "
+               "approximations: check the geometry and energies with a higher-level method "
+               "(e.g. multireference) before relying on them.")
+
+_RESPONSE_METHODS = ("cis", "tda", "tdhf", "tddft")
+
+
+def external_basis(coords_bohr: np.ndarray, tol: float = 1e-8) -> np.ndarray:
+    """Orthonormal rigid-body directions (translations and rotations), (k, 3N), k = 6 or 5.
+
+    Rotations are about the centroid (unweighted Cartesian metric, as used for projectors).
+    Linear molecules give 5 directions, a single atom 3.
+    """
+    x = np.asarray(coords_bohr, float).reshape(-1, 3)
+    n = len(x)
+    vecs = []
+    for k in range(3):
+        t = np.zeros((n, 3))
+        t[:, k] = 1.0
+        vecs.append(t.ravel())
+    r = x - x.mean(axis=0)
+    for k in range(3):
+        axis = np.zeros(3)
+        axis[k] = 1.0
+        vecs.append(np.cross(axis, r).ravel())
+    A = np.array(vecs)
+    U, s, Vt = np.linalg.svd(A, full_matrices=False)
+    keep = s > tol * max(1.0, s.max())
+    return Vt[keep]
+
+
+def remove_external(vector: np.ndarray, basis: np.ndarray | None) -> np.ndarray:
+    """``vector`` (any shape with 3N entries) minus its rigid-body part; flat (3N,)."""
+    v = np.asarray(vector, float).ravel()
+    if basis is None or basis.size == 0:
+        return v.copy()
+    return v - basis.T @ (basis @ v)
+
+
+@dataclass(frozen=True, kw_only=True)
+class PairEvaluation:
+    """Both states of a crossing pair at one geometry (flat Cartesian vectors, Eh, bohr).
+
+    Attributes
+    ----------
+    lower, upper
+        Adiabatic labels of the pair at this geometry, ordered by energy.
+    task_labels
+        The task labels carried by (lower, upper): for a same-manifold pair the first task
+        label given names the lower state; different manifolds keep their own label.
+    e_lower, e_upper, gap
+        Energies and gap = e_upper - e_lower >= 0.
+    g_lower, g_upper, x1, gbar
+        Gradients (external modes removed), x1 = g_upper - g_lower, gbar = mean.
+    h
+        Interstate coupling vector (external modes removed) or None when not computed.
+    """
+
+    geometry: Geometry
+    evaluation: Evaluation
+    tracking: Any
+    lower: StateLabel
+    upper: StateLabel
+    task_labels: tuple[str, str]
+    e_lower: float
+    e_upper: float
+    g_lower: np.ndarray
+    g_upper: np.ndarray
+    h: np.ndarray | None
+    external: np.ndarray | None
+
+    @property
+    def gap(self) -> float:
+        return self.e_upper - self.e_lower
+
+    @property
+    def mean_energy(self) -> float:
+        return 0.5 * (self.e_lower + self.e_upper)
+
+    @property
+    def x1(self) -> np.ndarray:
+        return self.g_upper - self.g_lower
+
+    @property
+    def gbar(self) -> np.ndarray:
+        return 0.5 * (self.g_lower + self.g_upper)
+
+    @property
+    def same_manifold(self) -> bool:
+        return self.lower.manifold == self.upper.manifold
+
+    def energies(self) -> dict[str, float]:
+        return {self.task_labels[0]: self.e_lower, self.task_labels[1]: self.e_upper}
+
+    def shape(self, flat: np.ndarray) -> np.ndarray:
+        return np.asarray(flat, float).reshape(self.geometry.natom, 3)
+
+
+def pair_warnings(engine: Engine, targets: Sequence[StateLabel]) -> tuple[str, ...]:
+    """Warnings a user must see for this pair and method (wrong seam dimension, limits)."""
+    out = []
+    method = getattr(getattr(engine, "spec", None), "method", "")
+    model = bool(getattr(engine, "is_model", False))
+    if not model and method in _RESPONSE_METHODS and any(t.is_reference for t in targets):
+        ref = next(t for t in targets if t.is_reference)
+        out.append(
+            f"The pair contains the reference state {ref}: with {method.upper()} (a closed-shell "
+            "linear-response method) the reference does not couple to the response states, so "
+            "its crossings with them have the wrong dimension (a one-dimensional crossing "
+            "instead of a conical intersection; Levine, Ko, Quenneville, Martinez, Mol. Phys. "
+            "2006; Li, Marenich, Xu, Truhlar, J. Phys. Chem. Lett. 2014). The located point has "
+            "the wrong topology and a questionable energy; use state-averaged CASSCF or a "
+            "spin-flip method for intersections with the ground state.")
+    if not model:
+        out.append(LIMITS_NOTE)
+    return tuple(out)
+
+
+class PairEvaluator:
+    """Evaluates a followed pair of states at geometries, with state tracking.
+
+    Parameters
+    ----------
+    engine
+        Any :class:`~surfcross.engine.base.Engine`.
+    states
+        The two task labels, e.g. ('S1', 'S2') or ('S1', 'T1').
+    want_coupling
+        Ask the engine for the coupling vector h of the pair when it has couplings.
+    project_external
+        Remove rigid translations/rotations from all vectors; None = automatic (on, except for
+        model engines, whose surfaces are not rotation invariant).
+    tracker
+        A pair tracker with ``start``/``assign``/``accept``; built from
+        :class:`surfcross.tracking.StateTracker` when None.
+    tracking_options
+        Options for the default tracker.
+    """
+
+    def __init__(self, engine: Engine, states: Sequence[str | StateLabel], *,
+                 want_coupling: bool = False, project_external: bool | None = None,
+                 tracker: Any = None, tracking_options: Any = None) -> None:
+        targets = parse_states(list(states), count=2)
+        self.engine = engine
+        self.targets = targets
+        self.want_coupling = bool(want_coupling and engine.has_couplings)
+        if project_external is None:
+            project_external = not bool(getattr(engine, "is_model", False))
+        self.project_external = project_external
+        if tracker is None:
+            tracker = _default_tracker(engine, targets, tracking_options)
+        self.tracker = tracker
+        self._started = False
+        self.evaluations = 0
+
+    @property
+    def same_manifold(self) -> bool:
+        return self.targets[0].manifold == self.targets[1].manifold
+
+    def evaluate(self, geometry: Geometry) -> PairEvaluation:
+        """States, tracking, gradients (and coupling) of the pair at ``geometry``."""
+        ev = self.engine.states(geometry)
+        if not self._started:
+            record = self.tracker.start(ev)
+            self._started = True
+        else:
+            record = self.tracker.assign(ev)
+        roots = tuple(record.roots)
+        if len(roots) != 2:
+            raise InputError(f"the tracker returned {len(roots)} roots for a pair")
+        labels = sorted((ev.state(r) for r in roots), key=lambda s: s.energy_eh)
+        lower, upper = labels[0].label, labels[1].label
+        couplings = [(lower, upper)] if self.want_coupling else []
+        ev = self.engine.gradients(ev, [lower, upper], couplings)
+        self.evaluations += 1
+        basis = external_basis(geometry.coords_bohr) if self.project_external else None
+        h = None
+        if couplings:
+            raw = ev.couplings.get((lower, upper))
+            if raw is None and (upper, lower) in ev.couplings:
+                raw = ev.couplings[(upper, lower)]
+            h = None if raw is None else remove_external(raw, basis)
+        return PairEvaluation(
+            geometry=geometry, evaluation=ev, tracking=record, lower=lower, upper=upper,
+            task_labels=self._task_labels(lower, upper),
+            e_lower=labels[0].energy_eh, e_upper=labels[1].energy_eh,
+            g_lower=remove_external(ev.gradient(lower), basis),
+            g_upper=remove_external(ev.gradient(upper), basis), h=h, external=basis)
+
+    def _task_labels(self, lower: StateLabel, upper: StateLabel) -> tuple[str, str]:
+        a, b = self.targets
+        if self.same_manifold:
+            return str(a), str(b)
+        return (str(a), str(b)) if lower.manifold == a.manifold else (str(b), str(a))
+
+    def accept(self, pair: PairEvaluation) -> None:
+        """Move the tracker's reference to this (accepted) geometry."""
+        self.tracker.accept(pair.tracking)
+
+    def state_dict(self) -> dict[str, Any]:
+        state = getattr(self.tracker, "state_dict", None)
+        return {"tracker": state() if callable(state) else {},
+                "targets": [str(t) for t in self.targets]}
+
+    def load_state_dict(self, state: Mapping[str, Any]) -> None:
+        loader = getattr(self.tracker, "load_state_dict", None)
+        if callable(loader) and state.get("tracker"):
+            loader(state["tracker"])
+
+
+def _default_tracker(engine: Engine, targets: tuple[StateLabel, ...], options: Any) -> Any:
+    from ..tracking import StateTracker, TrackingOptions  # the tracker package owns these
+
+    opts = TrackingOptions() if options is None else options
+    return StateTracker(engine, [str(t) for t in targets], options=opts, pair=True)
+
+
+class CrossingObjectiveBase(abc.ABC):
+    """Common part of the crossing objectives: pair evaluation, tracking, warnings, resume.
+
+    Subclasses implement ``_compose(pair) -> (ObjectiveValue, payload)`` and may implement
+    ``_commit(pair, payload)`` (called when the optimizer accepts that value).
+    """
+
+    name = "crossing"
+    search = ""
+
+    def __init__(self, engine: Engine, states: Sequence[str | StateLabel], settings: Any, *,
+                 want_coupling: bool = False, tracker: Any = None,
+                 tracking_options: Any = None) -> None:
+        self.settings = settings
+        self.pairs = PairEvaluator(engine, states, want_coupling=want_coupling,
+                                   project_external=settings.project_external,
+                                   tracker=tracker, tracking_options=tracking_options)
+        self._warnings: list[str] = list(pair_warnings(engine, self.pairs.targets))
+        self._pending: dict[int, tuple[Any, PairEvaluation, Any]] = {}
+        self.last_pair: PairEvaluation | None = None
+        self.accepted_pair: PairEvaluation | None = None
+
+    @property
+    def targets(self) -> tuple[StateLabel, ...]:
+        return self.pairs.targets
+
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        """Method limits and search-specific problems, for result.json ``warnings``."""
+        return tuple(dict.fromkeys(self._warnings))
+
+    def warn(self, message: str) -> None:
+        if message not in self._warnings:
+            log.warning(message)
+            self._warnings.append(message)
+
+    def evaluate(self, geometry: Geometry):
+        pair = self.pairs.evaluate(geometry)
+        self.last_pair = pair
+        value, payload = self._compose(pair)
+        if len(self._pending) > 16:  # rejected trials are never accepted; forget old ones
+            self._pending.pop(next(iter(self._pending)))
+        self._pending[id(value)] = (value, pair, payload)
+        return value
+
+    def accept(self, value) -> None:
+        entry = self._pending.pop(id(value), None)
+        if entry is None or entry[0] is not value:
+            raise InputError("accept() was given a value this objective did not produce")
+        _, pair, payload = entry
+        self._pending.clear()
+        self.pairs.accept(pair)
+        self.accepted_pair = pair
+        self._commit(pair, payload)
+
+    def after_convergence(self, value) -> bool:
+        return False
+
+    def _commit(self, pair: PairEvaluation, payload: Any) -> None:
+        """Default: nothing to commit."""
+
+    @abc.abstractmethod
+    def _compose(self, pair: PairEvaluation):
+        """(ObjectiveValue, payload) for this pair: each search defines its working gradient."""
+
+    def _info(self, pair: PairEvaluation, **extra: Any) -> dict[str, Any]:
+        info = {"search": self.search, "roots": [str(pair.lower), str(pair.upper)],
+                "gap_eh": pair.gap, "mean_energy_eh": pair.mean_energy,
+                "x1_norm": float(np.linalg.norm(pair.x1))}
+        info.update(extra)
+        return info
+
+    def state_dict(self) -> dict[str, Any]:
+        return {"search": self.search, "pairs": self.pairs.state_dict(),
+                "warnings": list(self._warnings)}
+
+    def load_state_dict(self, state: Mapping[str, Any]) -> None:
+        if state.get("search", self.search) != self.search:
+            raise InputError(f"checkpoint was written by the {state['search']!r} search, "
+                             f"not {self.search!r}")
+        self.pairs.load_state_dict(state.get("pairs", {}))
+        for w in state.get("warnings", []):
+            if w not in self._warnings:
+                self._warnings.append(w)
+
+
+def unit(vector: np.ndarray, tiny: float = 1e-14) -> tuple[np.ndarray, float]:
+    """(vector/|vector|, |vector|); a zero vector gives (zeros, 0)."""
+    n = float(np.linalg.norm(vector))
+    return (vector / n if n > tiny else np.zeros_like(vector)), n
+
+
+def gap_criterion(gap: float, tol: float):
+    from .base import Criterion
+
+    return Criterion(name="gap", value=gap, threshold=tol, unit="Eh")
+
+
+def merit_weight(pair: PairEvaluation, fixed: float | None) -> float:
+    """Weight mu of the gap in the step-acceptance merit Ebar + mu * dE.
+
+    The merit is an exact (L1) penalty: it decreases along a step toward the seam only when
+    mu exceeds the magnitude of the Lagrange multiplier |gbar.x-hat|/|x1|; we take twice that
+    at the start (at least 1) and keep it fixed for the run, so merits stay comparable.
+    """
+    if fixed is not None:
+        return float(fixed)
+    xhat, n1 = unit(pair.x1)
+    if n1 == 0.0:
+        return 1.0
+    return max(1.0, 2.0 * abs(float(pair.gbar @ xhat)) / n1)

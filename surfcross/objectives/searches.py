@@ -1,0 +1,99 @@
+"""Choosing a crossing search: names, defaults, and the factory.
+
+Search names (our own plain words):
+
+* ``'penalty'`` -- smoothed penalty function with sequential weight increase; no couplings
+  needed; any pair of states (:mod:`.penalty`).
+* ``'projected'`` -- composed gradient with a two-dimensional branching plane, from the
+  coupling vector when the engine has it, else from the branching-plane update
+  (:mod:`.projected`). For conical intersections (same spin).
+* ``'spin'`` -- effective gradient with a one-dimensional branching space, for states of
+  different spin or symmetry (:mod:`.spin`).
+* ``'auto'`` -- 'projected' for a pair in the same spin manifold, 'spin' otherwise.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import Any, Sequence
+
+from ..engine.base import Engine
+from ..errors import InputError
+from ..states import StateLabel, parse_states
+from .crossing import GAP_TOLERANCES
+from .penalty import PenaltyObjective, PenaltySettings
+from .projected import ProjectedObjective, ProjectedSettings
+from .spin import SpinCrossingObjective, SpinSettings
+
+__all__ = ["SEARCHES", "choose_search", "make_crossing_objective", "default_settings",
+           "gap_tolerance"]
+
+SEARCHES = ("auto", "penalty", "projected", "spin")
+
+_SETTINGS = {"penalty": PenaltySettings, "projected": ProjectedSettings, "spin": SpinSettings}
+_OBJECTIVES = {"penalty": PenaltyObjective, "projected": ProjectedObjective,
+               "spin": SpinCrossingObjective}
+
+
+def gap_tolerance(preset: str = "default") -> float:
+    """Gap tolerance (Eh) of a preset: 'default' 1e-3, 'tight' 1e-4."""
+    try:
+        return GAP_TOLERANCES[preset]
+    except KeyError:
+        raise InputError(f"unknown convergence preset {preset!r}: choose "
+                         f"{', '.join(GAP_TOLERANCES)}") from None
+
+
+def choose_search(states: Sequence[str | StateLabel], search: str = "auto") -> str:
+    """The concrete search for a pair: resolves 'auto' by the spin manifolds of the pair."""
+    name = search.strip().lower()
+    if name not in SEARCHES:
+        raise InputError(f"unknown crossing search {search!r}: choose {', '.join(SEARCHES)}")
+    if name != "auto":
+        return name
+    a, b = parse_states(list(states), count=2)
+    return "projected" if a.manifold == b.manifold else "spin"
+
+
+def default_settings(search: str, preset: str = "default") -> Any:
+    """Settings dataclass of a concrete search with the preset's gap tolerance."""
+    if search not in _SETTINGS:
+        raise InputError(f"no settings for search {search!r}: choose {', '.join(_SETTINGS)}")
+    return _SETTINGS[search](gap_tol_eh=gap_tolerance(preset))
+
+
+def make_crossing_objective(engine: Engine, states: Sequence[str | StateLabel],
+                            search: str = "auto", settings: Any = None, *,
+                            preset: str = "default", tracker: Any = None,
+                            tracking_options: Any = None):
+    """Build the crossing objective for a pair of states.
+
+    Parameters
+    ----------
+    engine
+        Any engine (PySCF response engine, model engine, ...).
+    states
+        Two task labels, e.g. ``('S1', 'S2')`` or ``('S1', 'T1')``.
+    search
+        'auto', 'penalty', 'projected' or 'spin' (see the module docstring).
+    settings
+        The settings dataclass of the chosen search (``PenaltySettings``,
+        ``ProjectedSettings``, ``SpinSettings``); defaults of the preset when None.
+    preset
+        'default' (gap 1e-3 Eh) or 'tight' (1e-4 Eh); used only when ``settings`` is None.
+    tracker, tracking_options
+        A ready pair tracker, or options for the default one.
+    """
+    name = choose_search(states, search)
+    if settings is None:
+        settings = default_settings(name, preset)
+    elif not isinstance(settings, _SETTINGS[name]):
+        raise InputError(f"the {name} search takes {_SETTINGS[name].__name__}, "
+                         f"got {type(settings).__name__}")
+    return _OBJECTIVES[name](engine, states, settings, tracker=tracker,
+                             tracking_options=tracking_options)
+
+
+def with_gap_tolerance(settings: Any, gap_tol_eh: float) -> Any:
+    """A copy of any crossing settings dataclass with another gap tolerance."""
+    return replace(settings, gap_tol_eh=gap_tol_eh)
