@@ -1,0 +1,170 @@
+"""Molecule and SCF reference for the PySCF response engine.
+
+Builds the PySCF molecule of a :class:`Geometry`, runs the RHF/RKS/UHF/UKS reference with a
+chain of fallbacks (DIIS, then level shift + damping, then a second-order solver) and counts
+the SCF cycles. Warm starts take the occupied orbitals of the previous geometry, orthonormalized
+in the overlap metric of the new one, as the density guess.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from typing import IO, Any
+
+import numpy as np
+
+from ..errors import InputError, SCFNotConvergedError
+from ..geometry import Geometry
+from .base import MethodSpec
+
+__all__ = ["ScfResult", "build_molecule", "check_functional", "run_reference", "warm_density"]
+
+logger = logging.getLogger(__name__)
+
+#: level shift (Eh) and damping factor of the second SCF attempt
+FALLBACK_LEVEL_SHIFT = 0.3
+FALLBACK_DAMPING = 0.5
+
+
+@dataclass(frozen=True)
+class ScfResult:
+    """A converged SCF reference: the PySCF object, cycles used and strategy that worked."""
+
+    mf: Any
+    cycles: int
+    strategy: str
+
+
+def build_molecule(geometry: Geometry, spec: MethodSpec, spin: int, stdout: IO | None,
+                   verbose: int) -> Any:
+    """PySCF ``Mole`` at ``geometry`` (bohr) with charge from the geometry and ``spin`` = 2S."""
+    from pyscf import gto
+
+    mol = gto.Mole()
+    mol.atom = [(s, tuple(float(c) for c in xyz))
+                for s, xyz in zip(geometry.symbols, geometry.coords_bohr)]
+    mol.unit = "Bohr"
+    mol.basis = spec.basis
+    mol.charge = geometry.charge
+    mol.spin = spin
+    mol.symmetry = False
+    mol.verbose = verbose
+    mol.max_memory = spec.max_memory_mb
+    if stdout is not None:
+        mol.stdout = stdout
+    try:
+        mol.build(dump_input=False, parse_arg=False)
+    except (KeyError, RuntimeError, ValueError) as exc:
+        raise InputError(f"PySCF cannot build the molecule with basis {spec.basis!r}: {exc}") from None
+    if stdout is not None:
+        mol.stdout = stdout
+    return mol
+
+
+def check_functional(xc: str | None) -> None:
+    """Raise InputError when PySCF (libxc) does not know the functional name."""
+    if xc is None:
+        return
+    from pyscf.dft import libxc
+
+    try:
+        libxc.parse_xc(xc)
+    except (KeyError, ValueError, RuntimeError) as exc:
+        raise InputError(f"unknown exchange-correlation functional {xc!r} ({exc}); use a name "
+                         "PySCF knows, e.g. b3lyp, pbe0, camb3lyp, pbe") from None
+
+
+def _new_scf(mol: Any, spec: MethodSpec, unrestricted: bool) -> Any:
+    from pyscf import dft, scf
+
+    if spec.xc is None:
+        mf = scf.UHF(mol) if unrestricted else scf.RHF(mol)
+    else:
+        mf = dft.UKS(mol) if unrestricted else dft.RKS(mol)
+        mf.xc = spec.xc
+        mf.grids.level = spec.grid_level
+    mf.conv_tol = spec.scf_conv_tol
+    mf.max_memory = spec.max_memory_mb
+    mf.verbose = mol.verbose
+    mf.stdout = mol.stdout
+    return mf
+
+
+def _counted_kernel(mf: Any, dm0: np.ndarray | None) -> tuple[bool, int]:
+    """Run ``mf.kernel`` and count its cycles through the per-cycle callback."""
+    count = [0]
+
+    def tick(_envs: dict) -> None:
+        count[0] += 1
+
+    mf.callback = tick
+    try:
+        mf.kernel(dm0=dm0)
+    finally:
+        mf.callback = None
+    return bool(mf.converged), count[0]
+
+
+def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
+                  dm0: np.ndarray | None) -> ScfResult:
+    """Converge the SCF reference or raise :class:`SCFNotConvergedError`.
+
+    Strategy: DIIS from ``dm0`` (or PySCF's default guess); then level shift + damping from
+    the default guess; then the second-order (Newton) solver. A reference converged by a
+    fallback is re-converged once without shift/damping, so its canonical orbitals and
+    orbital energies are the plain ones the response and gradient code expect.
+    """
+    mf = _new_scf(mol, spec, unrestricted)
+    ok, total = _counted_kernel(mf, dm0)
+    if ok:
+        return ScfResult(mf, total, "diis")
+    logger.info("SCF not converged with DIIS after %d cycles; retrying with level shift and "
+                "damping", total)
+    shifted = _new_scf(mol, spec, unrestricted)
+    shifted.level_shift = FALLBACK_LEVEL_SHIFT
+    shifted.damp = FALLBACK_DAMPING
+    shifted.max_cycle = 200
+    ok, n = _counted_kernel(shifted, None)
+    total += n
+    strategy = "level shift + damping"
+    if not ok:
+        logger.info("SCF still not converged; retrying with the second-order solver")
+        newton = _new_scf(mol, spec, unrestricted).newton()
+        ok, n = _counted_kernel(newton, shifted.make_rdm1())
+        total += n
+        strategy = "second-order"
+        shifted = newton
+    if ok:
+        polished = _new_scf(mol, spec, unrestricted)
+        ok, n = _counted_kernel(polished, shifted.make_rdm1())
+        total += n
+        if ok:
+            return ScfResult(polished, total, strategy)
+    kind = ("UHF" if unrestricted else "RHF") if spec.xc is None else \
+        ("UKS" if unrestricted else "RKS") + f"/{spec.xc}"
+    raise SCFNotConvergedError(
+        f"the {kind} reference did not converge ({total} cycles: DIIS, level shift + damping, "
+        "second-order solver). Check charge and spin, start from a more reasonable geometry, "
+        "try an unrestricted reference or a smaller/larger basis")
+
+
+def warm_density(mol: Any, mo_coeff: np.ndarray, mo_occ: np.ndarray) -> np.ndarray:
+    """Density guess at ``mol`` from the previous geometry's occupied orbitals.
+
+    The occupied orbitals are Loewdin-orthonormalized in the new overlap metric, so the guess
+    is idempotent and has the right number of electrons.
+    """
+    s = mol.intor_symmetric("int1e_ovlp")
+
+    def one(c: np.ndarray, occ: np.ndarray) -> np.ndarray:
+        mask = occ > 0
+        cocc = c[:, mask]
+        m = cocc.T @ s @ cocc
+        w, v = np.linalg.eigh(m)
+        cocc = cocc @ (v * w ** -0.5) @ v.T
+        return (cocc * occ[mask]) @ cocc.T
+
+    if np.ndim(mo_occ) == 2:
+        return np.asarray([one(mo_coeff[0], mo_occ[0]), one(mo_coeff[1], mo_occ[1])])
+    return one(mo_coeff, mo_occ)
