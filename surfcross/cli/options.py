@@ -63,7 +63,8 @@ def add_geometry_argument(parser: argparse.ArgumentParser) -> None:
 
 
 def geometry_from_args(args: argparse.Namespace, path: str | None = None) -> Geometry:
-    geom = read_xyz(path or args.geometry)
-    charge = args.charge if args.charge is not None else geom.charge
-    spin = args.spin if args.spin is not None else geom.spin
-    return geom.with_charge_spin(charge, spin)
+    # charge and spin go to the reader, so an odd-electron molecule read with --spin 1
+    # is not rejected as a singlet first
+    charge = args.charge if args.charge is not None else 0
+    spin = args.spin if args.spin is not None else 0
+    return read_xyz(path or args.geometry, charge, spin)

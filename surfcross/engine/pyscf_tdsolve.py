@@ -138,10 +138,10 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
         if flags[:nstates].all() or (flags[:needed].all() and k > 0):
             break
         if flags[:needed].all():
-            logger.info("%s: extra roots not converged; one restart", what)
+            logger.debug("%s: extra roots not converged; one restart", what)
             continue
         bad = [str(i + 1) for i in np.flatnonzero(~flags[:needed])]
-        logger.info("%s: roots %s not converged (attempt %d)", what, ", ".join(bad), k + 1)
+        logger.debug("%s: roots %s not converged (attempt %d)", what, ", ".join(bad), k + 1)
     else:
         raise ResponseNotConvergedError(
             f"{what}: excited roots {', '.join(bad)} did not converge ({iterations} Davidson "

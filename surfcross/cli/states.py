@@ -1,0 +1,80 @@
+"""``surfcross states GEOM.xyz``: vertical states at one geometry, as a table or JSON."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from ..analysis.vertical import VerticalRow, limits_note, vertical_rows, vertical_summary
+from ..engine import make_engine
+from ..errors import InputError
+from .options import add_geometry_argument, add_method_options, geometry_from_args, method_from_args
+
+__all__ = ["add_parser", "run", "format_table"]
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "states", help="vertical excited states: energies, oscillator strengths, transitions",
+        description="Compute the reference and excited states at one geometry and print "
+                    "excitation energies, wavelengths, oscillator strengths and dominant "
+                    "orbital transitions.")
+    add_geometry_argument(parser)
+    add_method_options(parser)
+    parser.add_argument("--triplet-count", type=int, default=0, metavar="N",
+                        help="also compute N triplets of a closed-shell molecule (default: 0)")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    parser.add_argument("--pyscf-log", default=None, metavar="FILE",
+                        help="append PySCF's own output to FILE (default: discard it)")
+    parser.set_defaults(handler=run)
+    return parser
+
+
+def _number(value: float | None, fmt: str) -> str:
+    return "-" if value is None else format(value, fmt)
+
+
+def format_table(rows: tuple[VerticalRow, ...]) -> str:
+    """Fixed-width text table of the rows (one line per state)."""
+    show_s2 = any(r.spin_square is not None for r in rows)
+    head = f"{'state':<6}{'dE/eV':>9}{'lambda/nm':>11}{'E/Eh':>17}{'f':>9}"
+    if show_s2:
+        head += f"{'<S^2>':>8}"
+    lines = [head + "  transitions (weight)"]
+    for r in rows:
+        line = (f"{r.label:<6}{r.excitation_ev:>9.3f}{_number(r.wavelength_nm, '.1f'):>11}"
+                f"{r.energy_eh:>17.8f}{_number(r.oscillator_strength, '.4f'):>9}")
+        if show_s2:
+            line += f"{_number(r.spin_square, '.3f'):>8}"
+        lines.append(line + "  " + ", ".join(r.transitions))
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    if args.triplet_count < 0:
+        raise InputError("--triplet-count must be >= 0")
+    geometry = geometry_from_args(args)
+    spec = method_from_args(args, roots=3, triplet_roots=args.triplet_count)
+    if spec.method == "casscf" and args.triplet_count:
+        raise InputError("--triplet-count applies to the linear-response methods only")
+    kwargs = {"log_path": args.pyscf_log} if args.pyscf_log else {}
+    engine = make_engine(spec, **kwargs)
+    try:
+        evaluation = engine.states(geometry)
+    finally:
+        engine.close()
+    if args.json:
+        summary = vertical_summary(evaluation, spec, source=args.geometry)
+        json.dump(summary, sys.stdout, indent=2)
+        sys.stdout.write("\n")
+        return 0
+    print(f"{spec.method.upper()}/{spec.reference}/{spec.basis}  charge {geometry.charge}  "
+          f"spin (2S) {geometry.spin}  {len(evaluation.states)} states  "
+          f"(SCF cycles {evaluation.scf_cycles}, response iterations "
+          f"{evaluation.response_iterations})")
+    print(format_table(vertical_rows(evaluation)))
+    for text in evaluation.warnings:
+        print(f"warning: {text}")
+    print(f"note: {limits_note(spec)}")
+    return 0
