@@ -1,0 +1,181 @@
+"""``report.md``: a human-readable account of one task, built from plain data.
+
+:func:`render_report` takes the result dict (the content of result.json) plus the convergence
+criteria of the last step and optional extra sections, and returns Markdown text. It always
+ends with the known limits of the method used and the caution that results need checking with
+higher-level methods.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Iterable, Mapping, Sequence
+
+from ..states import parse_state
+from ..units import HARTREE_IN_EV
+
+__all__ = ["method_limits", "CAUTION", "render_report", "reference_label"]
+
+CAUTION = ("These numbers come from a model. Check any geometry or energy you rely on with a "
+           "higher-level method (for example a multireference calculation) and, where possible, "
+           "against experiment.")
+
+
+def method_limits(method: Mapping[str, Any], states: Sequence[str] = ()) -> list[str]:
+    """Known limits of ``method`` that matter for a task on ``states``, as sentences."""
+    name = str(method.get("method", "")).lower()
+    basis = str(method.get("basis", "")).lower()
+    notes: list[str] = []
+    response = name in ("cis", "tda", "tdhf", "tddft")
+    labels = [parse_state(s) for s in states]
+    if response:
+        notes.append(
+            "Linear response from one reference determinant has no doubly excited states, and "
+            "charge-transfer or Rydberg states depend strongly on the functional and basis.")
+        if any(label.is_reference for label in labels) and len(labels) >= 2:
+            notes.append(
+                "This crossing involves the reference (ground) state. In CIS/TDA/TDHF/TDDFT the "
+                "reference does not couple to the response states, so its crossings with them "
+                "have the wrong dimensionality (a seam one dimension too large): the point found "
+                "is a crossing of the wrong shape. Use state-averaged CASSCF or a spin-flip "
+                "method for ground-state funnels.")
+        if name == "tdhf" or name == "tddft":
+            notes.append(
+                "Full linear response (TDHF/TDDFT) can become unstable near degeneracies with "
+                "the ground state; the Tamm-Dancoff variant (tda) is more robust there.")
+        if name == "cis" or (name == "tda" and not method.get("xc")):
+            notes.append("CIS lacks electron correlation: excitation energies are typically "
+                         "too high by an electronvolt or more.")
+    if name == "casscf":
+        notes.append("State-averaged CASSCF depends on the active space and state weights and "
+                     "lacks dynamic correlation; energies need a perturbative correction.")
+    if basis in ("sto-3g", "sto3g", "minao"):
+        notes.append("A minimal basis set (STO-3G) is for tests and demonstrations only.")
+    return notes
+
+
+def reference_label(energies_eh: Mapping[str, float]) -> str | None:
+    """The label energies are quoted against: S0 or 0 when computed, else the lowest state."""
+    for label in energies_eh:
+        try:
+            if parse_state(label).is_reference:
+                return label
+        except ValueError:
+            continue
+    return min(energies_eh, key=energies_eh.get) if energies_eh else None
+
+
+def _fmt(value: Any) -> str:
+    if isinstance(value, bool) or value is None:
+        return {True: "yes", False: "no", None: "-"}[value]
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return "-"
+        return f"{value:.6g}" if abs(value) >= 1e-3 or value == 0.0 else f"{value:.3e}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(_fmt(v) for v in value)
+    return str(value)
+
+
+def _table(header: Sequence[str], rows: Iterable[Sequence[Any]]) -> list[str]:
+    lines = ["| " + " | ".join(header) + " |", "|" + "|".join(" --- " for _ in header) + "|"]
+    lines += ["| " + " | ".join(_fmt(c) if not isinstance(c, str) else c for c in row) + " |"
+              for row in rows]
+    return lines
+
+
+def _criteria_section(criteria: Sequence[Any]) -> list[str]:
+    if not criteria:
+        return ["No convergence tests were recorded for this task."]
+    rows = []
+    for c in criteria:
+        get = (lambda k: c[k]) if isinstance(c, Mapping) else (lambda k: getattr(c, k))
+        value, threshold = float(get("value")), float(get("threshold"))
+        unit = get("unit") if (isinstance(c, Mapping) and "unit" in c) or hasattr(c, "unit") else ""
+        rows.append((get("name"), f"{value:.3e}", f"{threshold:.3e}", unit or "",
+                     "yes" if abs(value) <= threshold else "no"))
+    return _table(("criterion", "value", "threshold", "unit", "passed"), rows)
+
+
+def _energy_section(result: Mapping[str, Any]) -> list[str]:
+    energies = {k: v for k, v in (result.get("energies_eh") or {}).items() if v is not None}
+    if not energies:
+        return ["No energies were recorded."]
+    ref = reference_label(energies)
+    targets = set(result.get("target_energies_eh") or {}) | set(result.get("states") or [])
+    rows = [(f"**{label}**" if label in targets else label, f"{e:.10f}",
+             f"{(e - energies[ref]) * HARTREE_IN_EV:.4f}")
+            for label, e in energies.items()]
+    lines = [f"Energies at the final geometry (eV relative to {ref}; followed states in bold). "
+             "Labels of all computed states are adiabatic (energy order) at this geometry."]
+    lines += [""] + _table(("state", "energy / Eh", f"above {ref} / eV"), rows)
+    gap = result.get("gap_ev")
+    if gap is not None:
+        gap_eh = result.get("gap_eh", gap / HARTREE_IN_EV)
+        lines += ["", f"Gap between the followed states: {gap:.5f} eV ({gap_eh:.3e} Eh)."]
+    return lines
+
+
+def _list_section(items: Sequence[str], empty: str) -> list[str]:
+    return [f"- {item}" for item in items] if items else [empty]
+
+
+def render_report(result: Mapping[str, Any], *, criteria: Sequence[Any] = (),
+                  branching: Mapping[str, Any] | None = None, reorderings: Sequence[str] = (),
+                  sections: Sequence[tuple[str, str]] = (), plots: Sequence[str] = (),
+                  notes: Sequence[str] = (), limits: Sequence[str] | None = None) -> str:
+    """Markdown report of one task.
+
+    Parameters
+    ----------
+    result
+        The result dict (result.json content: task, converged, method, energies_eh, ...).
+    criteria
+        Convergence tests of the last step (:class:`Criterion` objects or dicts with name,
+        value, threshold, unit).
+    branching
+        Characterization of a crossing (pitch, asymmetry, tilt, topography, ...); defaults to
+        ``result['branching']`` when present.
+    reorderings
+        Notes on followed states that moved to other adiabatic roots.
+    sections
+        Extra (title, Markdown body) sections added before the limits.
+    plots
+        Image files of the run directory to link.
+    notes
+        Short remarks (e.g. why no plots were made).
+    limits
+        Method limits to state; default :func:`method_limits` of the result's method.
+    """
+    method = result.get("method") or {}
+    states = [str(s) for s in result.get("states") or []]
+    status = "converged" if result.get("converged") else "NOT converged"
+    head = [f"# surfcross {result.get('task', 'task')}: {', '.join(states) or 'states'}", ""]
+    head += [f"- Result: **{status}**" + (f" ({result['message']})" if result.get("message") else ""),
+             f"- Steps: {result.get('iterations', '-')}, engine evaluations: "
+             f"{result.get('evaluations', '-')}",
+             f"- Method: {method.get('method', '-')} / {method.get('xc') or 'HF'} / "
+             f"{method.get('basis', '-')}, charge and 2S from the molecule, roots "
+             f"{method.get('roots', '-')}"]
+    if result.get("search"):
+        head.append(f"- Crossing search: {result['search']}")
+    if result.get("final_xyz"):
+        head.append(f"- Final geometry: `{result['final_xyz']}`")
+    out = head + ["", "## Convergence", ""] + _criteria_section(criteria)
+    out += ["", "## Energies", ""] + _energy_section(result)
+    branching = branching if branching is not None else result.get("branching")
+    if branching:
+        out += ["", "## Branching-plane analysis", ""]
+        out += _table(("quantity", "value"), [(k, _fmt(v)) for k, v in branching.items()])
+    out += ["", "## State tracking", ""]
+    out += _list_section(list(reorderings), "No followed state changed its adiabatic root.")
+    for title, body in sections:
+        out += ["", f"## {title}", "", body.rstrip()]
+    if plots:
+        out += ["", "## Plots", ""] + [f"![{p}]({p})" for p in plots]
+    out += ["", "## Warnings", ""]
+    out += _list_section(list(result.get("warnings") or []) + list(notes), "None.")
+    lims = method_limits(method, states) if limits is None else list(limits)
+    out += ["", "## Limits of the method", ""] + _list_section(lims, "None specific to this task.")
+    out += ["", CAUTION, ""]
+    return "\n".join(out)

@@ -1,0 +1,180 @@
+"""The machine-readable outcome of a task: ``result.json``.
+
+JSON has no arrays, enums, tuples-as-keys or NaN, so :func:`to_jsonable` turns the objects a
+task produces (numpy arrays and scalars, :class:`Geometry`, :class:`StateLabel`, enums,
+dataclasses, paths) into plain lists, dicts, strings and numbers; non-finite floats become
+``null``. :func:`result_dict` builds the keys every task reports (see ``RESULT_KEYS``) from an
+:class:`OptimizationResult`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import enum
+import json
+import math
+import os
+from pathlib import Path
+from typing import Any, Iterable, Mapping, Sequence
+
+import numpy as np
+
+from ..geometry import Geometry
+from ..states import StateLabel
+from ..units import HARTREE_IN_EV
+
+__all__ = [
+    "RESULT_KEYS",
+    "to_jsonable",
+    "dumps",
+    "write_json_atomic",
+    "complete_result",
+    "result_dict",
+    "all_state_energies",
+    "reorderings",
+]
+
+#: keys every result.json holds (values may be null where they do not apply, e.g. gap_ev)
+RESULT_KEYS = ("task", "converged", "iterations", "evaluations", "states", "energies_eh",
+               "gap_ev", "final_xyz", "method", "search", "warnings")
+
+
+def _key(key: Any) -> str:
+    if isinstance(key, tuple):
+        return "-".join(str(k) for k in key)
+    if isinstance(key, enum.Enum):
+        return str(key.value)
+    return str(key)
+
+
+def to_jsonable(obj: Any) -> Any:
+    """Plain JSON-able copy of ``obj`` (dicts, lists, str, int, float, bool, None)."""
+    if obj is None or isinstance(obj, (bool, str, int)):
+        return obj
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, np.generic):
+        return to_jsonable(obj.item())
+    if isinstance(obj, np.ndarray):
+        return [to_jsonable(v) for v in obj.tolist()] if obj.ndim else to_jsonable(obj.item())
+    if isinstance(obj, enum.Enum):
+        return to_jsonable(obj.value)
+    if isinstance(obj, (StateLabel, Path)):
+        return str(obj)
+    if isinstance(obj, Geometry):
+        return {"symbols": list(obj.symbols), "coords_angstrom": to_jsonable(obj.coords_angstrom),
+                "charge": obj.charge, "spin": obj.spin}
+    if isinstance(obj, Mapping):
+        return {_key(k): to_jsonable(v) for k, v in obj.items()}
+    if hasattr(obj, "to_dict") and callable(obj.to_dict):
+        return to_jsonable(obj.to_dict())
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: to_jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, (list, tuple, set, frozenset)):
+        items = sorted(obj, key=str) if isinstance(obj, (set, frozenset)) else obj
+        return [to_jsonable(v) for v in items]
+    raise TypeError(f"cannot write an object of type {type(obj).__name__} to JSON")
+
+
+def dumps(obj: Any) -> str:
+    """Pretty JSON text (two-space indent, key order kept, final newline)."""
+    return json.dumps(to_jsonable(obj), indent=2, allow_nan=False) + "\n"
+
+
+def write_json_atomic(path: str | os.PathLike, obj: Any) -> Path:
+    """Write ``obj`` as pretty JSON; the old file stays intact until the new one is complete."""
+    path = Path(path)
+    text = dumps(obj)
+    tmp = path.with_name(path.name + ".partial")
+    with open(tmp, "w", encoding="utf-8") as fh:
+        fh.write(text)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    return path
+
+
+def complete_result(result: Mapping[str, Any], final_xyz: str = "final.xyz") -> dict[str, Any]:
+    """Copy of ``result`` with the optional contract keys filled (gap_ev, search: null;
+    warnings: []; final_xyz). Raises ValueError naming required keys that are missing."""
+    out = dict(result)
+    out.setdefault("gap_ev", None)
+    out.setdefault("search", None)
+    out.setdefault("warnings", [])
+    out["final_xyz"] = final_xyz
+    missing = [k for k in RESULT_KEYS if k not in out]
+    if missing:
+        raise ValueError(f"result is missing the key(s) {', '.join(missing)}")
+    return out
+
+
+def all_state_energies(value: Any) -> dict[str, float]:
+    """{label: Eh} of every computed state behind an ObjectiveValue (adiabatic labels of its
+    evaluation), falling back to the followed states when there is no evaluation."""
+    evaluation = getattr(value, "evaluation", None)
+    if evaluation is not None and hasattr(evaluation, "energies"):
+        return {str(k): float(v) for k, v in evaluation.energies().items()}
+    return {str(k): float(v) for k, v in value.energies_eh.items()}
+
+
+def reorderings(history: Iterable[Any]) -> list[str]:
+    """Human-readable notes for every accepted step at which a followed state moved to
+    another adiabatic root (from ``record.value.tracking``)."""
+    notes = []
+    for rec in history:
+        tracking = getattr(rec.value, "tracking", None)
+        if not rec.accepted or tracking is None or not tracking.reordered:
+            continue
+        moves = [f"{t} now root {r} (was {p})"
+                 for t, r, p in zip(tracking.targets, tracking.roots, tracking.previous_roots)
+                 if r != p]
+        notes.append(f"step {rec.iteration}: " + "; ".join(moves or [str(tracking.roots)]))
+    return notes
+
+
+def result_dict(*, task: str, result: Any, states: Sequence[str | StateLabel],
+                method: Any, search: str | None = None,
+                extra: Mapping[str, Any] | None = None) -> dict[str, Any]:
+    """The result.json content of an optimization task.
+
+    Parameters
+    ----------
+    task
+        Task kind ('relax', 'cross', ...).
+    result
+        The :class:`~surfcross.optimize.records.OptimizationResult`.
+    states
+        The followed (task) labels.
+    method
+        :class:`~surfcross.engine.base.MethodSpec` or its dict.
+    search
+        Name of the crossing search, for crossings.
+    extra
+        Task-specific keys added at the end (they may not replace contract keys).
+    """
+    value = result.value
+    gap_eh = value.gap_eh
+    warnings = list(result.warnings)
+    notes = reorderings(result.history)
+    warnings += [f"state reordering at {n}" for n in notes if f"state reordering at {n}" not in warnings]
+    out: dict[str, Any] = {
+        "task": task,
+        "converged": bool(result.converged),
+        "status": result.status.value if isinstance(result.status, enum.Enum) else str(result.status),
+        "message": result.message,
+        "iterations": int(result.iterations),
+        "evaluations": int(result.evaluations),
+        "states": [str(s) for s in states],
+        "energies_eh": all_state_energies(value),
+        "target_energies_eh": {str(k): float(v) for k, v in value.energies_eh.items()},
+        "gap_eh": None if gap_eh is None else float(gap_eh),
+        "gap_ev": None if gap_eh is None else float(gap_eh) * HARTREE_IN_EV,
+        "method": method.to_dict() if hasattr(method, "to_dict") else dict(method),
+        "search": search,
+        "warnings": warnings,
+    }
+    for k, v in (extra or {}).items():
+        if k in RESULT_KEYS:
+            raise ValueError(f"extra result key {k!r} would replace a contract key")
+        out[k] = v
+    return out
