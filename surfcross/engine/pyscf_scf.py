@@ -25,6 +25,8 @@ logger = logging.getLogger(__name__)
 #: level shift (Eh) and damping factor of the second SCF attempt
 FALLBACK_LEVEL_SHIFT = 0.3
 FALLBACK_DAMPING = 0.5
+#: orbital-gradient threshold = this factor * sqrt(energy threshold)
+ORBITAL_GRADIENT_FACTOR = 1e-2
 
 
 @dataclass(frozen=True)
@@ -85,6 +87,9 @@ def _new_scf(mol: Any, spec: MethodSpec, unrestricted: bool) -> Any:
         mf.xc = spec.xc
         mf.grids.level = spec.grid_level
     mf.conv_tol = spec.scf_conv_tol
+    # PySCF's default orbital-gradient threshold, sqrt(conv_tol), leaves excited-state
+    # energies and gradients with errors of ~1e-8 Eh and ~1e-5 Eh/bohr; ask for more
+    mf.conv_tol_grad = ORBITAL_GRADIENT_FACTOR * np.sqrt(spec.scf_conv_tol)
     mf.max_memory = spec.max_memory_mb
     mf.verbose = mol.verbose
     mf.stdout = mol.stdout
