@@ -25,6 +25,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
+from ..coords.cartesian import external_basis
 from ..engine.base import Engine, Evaluation
 from ..errors import InputError
 from ..geometry import Geometry
@@ -34,7 +35,6 @@ __all__ = [
     "GAP_TOLERANCES",
     "PairEvaluation",
     "PairEvaluator",
-    "external_basis",
     "remove_external",
     "pair_warnings",
     "LIMITS_NOTE",
@@ -51,30 +51,6 @@ LIMITS_NOTE = ("Crossing points from single-reference response methods (CIS/TDA/
                "(e.g. multireference) before relying on them.")
 
 _RESPONSE_METHODS = ("cis", "tda", "tdhf", "tddft")
-
-
-def external_basis(coords_bohr: np.ndarray, tol: float = 1e-8) -> np.ndarray:
-    """Orthonormal rigid-body directions (translations and rotations), (k, 3N), k = 6 or 5.
-
-    Rotations are about the centroid (unweighted Cartesian metric, as used for projectors).
-    Linear molecules give 5 directions, a single atom 3.
-    """
-    x = np.asarray(coords_bohr, float).reshape(-1, 3)
-    n = len(x)
-    vecs = []
-    for k in range(3):
-        t = np.zeros((n, 3))
-        t[:, k] = 1.0
-        vecs.append(t.ravel())
-    r = x - x.mean(axis=0)
-    for k in range(3):
-        axis = np.zeros(3)
-        axis[k] = 1.0
-        vecs.append(np.cross(axis, r).ravel())
-    A = np.array(vecs)
-    U, s, Vt = np.linalg.svd(A, full_matrices=False)
-    keep = s > tol * max(1.0, s.max())
-    return Vt[keep]
 
 
 def remove_external(vector: np.ndarray, basis: np.ndarray | None) -> np.ndarray:
@@ -243,7 +219,7 @@ class PairEvaluator:
 
     def accept(self, pair: PairEvaluation) -> None:
         """Move the tracker's reference to this (accepted) geometry."""
-        self.tracker.accept(pair.tracking)
+        self.tracker.accept(pair.evaluation, pair.tracking)
 
     def state_dict(self) -> dict[str, Any]:
         state = getattr(self.tracker, "state_dict", None)

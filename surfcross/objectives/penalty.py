@@ -9,7 +9,10 @@ with Ebar the mean energy of the pair and dE = E_upper - E_lower >= 0. Its exact
     grad F = gbar + sigma * G'(dE) * x1,    G'(dE) = dE (dE + 2 alpha) / (dE + alpha)^2.
 
 F is a true objective (``exact_gradient=True``): energy-ratio trust control applies, and no
-derivative couplings are needed; it works for same-spin and different-spin pairs.
+derivative couplings are needed; it works for same-spin and different-spin pairs, in any
+coordinate system. A large sigma makes F stiff in the branching plane: its curvature there
+reaches about 2 sigma |x1|^2 / alpha (hundreds of Eh/bohr^2), so the optimizer must allow
+such Hessian eigenvalues (see :func:`surfcross.objectives.searches.optimizer_settings_for`).
 
 Known limit: at a fixed sigma the minimum of F is *near* the seam, with a residual gap of
 about alpha |gbar.x-hat| / (2 sigma |x1|). The search therefore runs sequentially: after the
@@ -120,7 +123,8 @@ class PenaltyObjective(CrossingObjectiveBase):
         value, grad = self.value_and_gradient(pair)
         g = pair.shape(grad)
         out = ObjectiveValue(
-            value=value, gradient=g, exact_gradient=True, energies_eh=pair.energies(),
+            value=value, gradient=g, exact_gradient=True,
+            energies_eh=pair.energies(),
             gap_eh=pair.gap, evaluation=pair.evaluation, tracking=pair.tracking,
             info=self._info(pair, sigma=self.sigma, alpha_eh=self.settings.alpha_eh,
                             cycle=self.cycles))

@@ -26,7 +26,14 @@ from .projected import ProjectedObjective, ProjectedSettings
 from .spin import SpinCrossingObjective, SpinSettings
 
 __all__ = ["SEARCHES", "choose_search", "make_crossing_objective", "default_settings",
-           "gap_tolerance"]
+           "gap_tolerance", "optimizer_settings_for", "with_gap_tolerance"]
+
+#: trust radius (bohr) to start crossing searches with (METHODS defaults: 0.1 bohr for
+#: crossings against 0.3 bohr for minima; our choice)
+CROSSING_TRUST_RADIUS = 0.1
+#: largest Hessian eigenvalue the penalty search needs (Eh/bohr^2): the curvature of F in the
+#: branching plane grows to ~2 sigma |x1|^2 / alpha, i.e. several hundred at sigma ~ 300
+PENALTY_MAX_CURVATURE = 1e4
 
 SEARCHES = ("auto", "penalty", "projected", "spin")
 
@@ -92,6 +99,24 @@ def make_crossing_objective(engine: Engine, states: Sequence[str | StateLabel],
                          f"got {type(settings).__name__}")
     return _OBJECTIVES[name](engine, states, settings, tracker=tracker,
                              tracking_options=tracking_options)
+
+
+def optimizer_settings_for(search: str, base: Any = None) -> Any:
+    """Optimizer settings suited to a crossing search (a copy of ``base`` with changes).
+
+    All searches start with a 0.1 bohr trust radius (unless ``base`` sets a smaller one). The
+    penalty search also needs large Hessian eigenvalues to be allowed (``max_curvature``
+    1e4 Eh/bohr^2): with the usual clamp of 100 the quasi-Newton model cannot follow the
+    stiffness of F at large sigma and the search oscillates.
+    """
+    from ..optimize.settings import OptimizerSettings
+
+    base = OptimizerSettings() if base is None else base
+    changes: dict[str, Any] = {"trust_radius": min(base.trust_radius, CROSSING_TRUST_RADIUS)}
+    changes["trust_min"] = min(base.trust_min, changes["trust_radius"])
+    if search == "penalty":
+        changes["max_curvature"] = max(base.max_curvature, PENALTY_MAX_CURVATURE)
+    return replace(base, **changes)
 
 
 def with_gap_tolerance(settings: Any, gap_tol_eh: float) -> Any:
