@@ -12,6 +12,7 @@ Task kinds and their keys live in one registry, :data:`TASK_KINDS`; a new kind i
 from __future__ import annotations
 
 import difflib
+import itertools
 import sys
 import types
 from dataclasses import dataclass, field
@@ -151,8 +152,20 @@ def register_task_kind(kind: TaskKind) -> None:
     TASK_KINDS[kind.name] = kind
 
 
+def _searches() -> tuple[str, ...]:
+    from .objectives.searches import SEARCHES
+    return tuple(SEARCHES)
+
+
+def _presets() -> tuple[str, ...]:
+    from .optimize.settings import CONVERGENCE_PRESETS
+    return tuple(CONVERGENCE_PRESETS)
+
+
+# names follow surfcross.optimize.settings (OptimizerSettings, ConvergenceSettings)
 _OPT = {
-    "max_steps": KeyRule(type="int", low=1, doc="largest number of optimizer steps"),
+    "max_iterations": KeyRule(type="int", low=1, doc="largest number of optimizer steps"),
+    "convergence": KeyRule(type="choice", choices=_presets(), doc="threshold set: loose, normal or tight"),
     "coordinates": KeyRule(type="choice", choices=("internal", "cartesian"),
                            doc="coordinate system of the steps"),
     "trust_radius": KeyRule(type="float", low=0.0, open_low=True, doc="initial trust radius, bohr"),
@@ -179,7 +192,8 @@ for _kind in (
              keys={"state": KeyRule(type="state", required=True, doc="state to minimize, e.g. S1"), **_OPT}),
     TaskKind(name="cross", doc="minimum-energy crossing point of two states",
              keys={"states": KeyRule(type="pair", required=True, length=(2, 2), doc="the two states, e.g. [\"S1\", \"S2\"]"),
-                   "search": KeyRule(type="str", doc="crossing search to use (see the cross command)"),
+                   "search": KeyRule(type="choice", choices=_searches(),
+                                     doc="crossing search: auto, penalty, projected or spin"),
                    "gap_tolerance": KeyRule(type="float", low=0.0, open_low=True,
                                             doc="largest gap accepted at the crossing, Eh"),
                    **_OPT}),
@@ -356,8 +370,8 @@ def _task(raw: Any, index: int, ctx: _Context, names: set[str]) -> TaskSpec:
         raise _fail(where, f"unknown task kind '{kind_name}'; {hint}")
     name = raw.get("name")
     if name is None:
-        name = next(n for n in (kind.name, *(f"{kind.name}_{k}" for k in range(2, 10**6)))
-                    if n not in names and n not in ctx.earlier)
+        candidates = itertools.chain([kind.name], (f"{kind.name}_{k}" for k in itertools.count(2)))
+        name = next(n for n in candidates if n not in names and n not in ctx.earlier)
     if not isinstance(name, str) or not name.strip():
         raise _fail(where, f"'name' must be a non-empty string, got {name!r}")
     name = name.strip()

@@ -154,9 +154,8 @@ def render_report(result: Mapping[str, Any], *, criteria: Sequence[Any] = (),
     head += [f"- Result: **{status}**" + (f" ({result['message']})" if result.get("message") else ""),
              f"- Steps: {result.get('iterations', '-')}, engine evaluations: "
              f"{result.get('evaluations', '-')}",
-             f"- Method: {method.get('method', '-')} / {method.get('xc') or 'HF'} / "
-             f"{method.get('basis', '-')}, charge and 2S from the molecule, roots "
-             f"{method.get('roots', '-')}"]
+             f"- Method: {method.get('method', '-')} on {method.get('xc') or 'HF'}, basis "
+             f"{method.get('basis', '-')}, {method.get('roots', '-')} excited roots"]
     if result.get("search"):
         head.append(f"- Crossing search: {result['search']}")
     if result.get("final_xyz"):
