@@ -90,9 +90,16 @@ def _add_term(hess: np.ndarray, p: prim.Primitive, xyz: np.ndarray, k: float) ->
 
 
 def _bend_terms(xyz: np.ndarray, i: int, j: int, k: int) -> list[prim.Primitive]:
-    """Angle i-j-k, or its two linear-bend components when the angle is near 180 deg."""
+    """Angle i-j-k, or its two linear-bend components when the angle is near 180 deg.
+
+    Folded triples (angle near 0, i and k on the same side of j, as for the end atoms of a
+    linear molecule) have no usable bend coordinate and give no term.
+    """
     angle = prim.Primitive("angle", (i, j, k))
-    if np.degrees(prim.value(angle, xyz)) < LINEAR_ANGLE_DEG:
+    degrees = np.degrees(prim.value(angle, xyz))
+    if degrees <= 180.0 - LINEAR_ANGLE_DEG:
+        return []
+    if degrees < LINEAR_ANGLE_DEG:
         return [angle]
     return [prim.Primitive("linear_bend", (i, j, k), direction=tuple(w)) for w in bend_directions(xyz, i, k)]
 
@@ -122,7 +129,7 @@ def lindh_hessian_cartesian(symbols: tuple[str, ...], coords_bohr: np.ndarray, c
     """Cartesian Lindh (1995) model Hessian, (3N, 3N), Eh/bohr^2.
 
     Sum over all pairs (stretch), triples (bend; two linear-bend components when the triple
-    is near straight) and quadruples (torsion, skipped when one of its angles is near
+    is near straight, none when it is folded) and quadruples (torsion, skipped when one of its angles is near
     straight) whose rho product is at least ``cutoff``. External modes are left in as
     (near-)zero eigenvalues. Falls back to 0.5 * unit matrix when an element beyond Ar occurs.
     """
