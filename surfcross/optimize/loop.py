@@ -6,8 +6,8 @@ Step acceptance
 predicted change (quadratic model of the step actually taken, see :mod:`.trust`). A trial whose
 value rises by more than ``energy_rise_tolerance`` is rejected: a record with
 ``accepted=False`` is emitted, the radius shrinks to min(tau, |s|)/4 and a new step is taken
-from the old point. When a rise cannot be cured by a shorter step (the radius is already at its
-floor) the step is accepted with a warning.
+from the old point. Every trial, rejected or not, feeds the Hessian update (a rejected trial
+still measures the curvature around the current point).
 
 *Composed objectives* (``exact_gradient=False``; the working gradient is not the derivative of
 any scalar): there is no ratio. The step uses the working Hessian
@@ -18,8 +18,11 @@ projected step P_new s. A trial is rejected when ``value.merit_value`` rises by 
 steps at the boundary and shrinks on rejection. This is the documented rule for objectives that
 are not true energies; subspace models are Cartesian, so these runs need Cartesian coordinates.
 
-In both cases ``value.reject_step`` makes the trial count as rejected. After ``max_rejections``
-consecutive rejections the run ends with status 'failed'.
+In both cases ``value.reject_step`` makes the trial count as rejected. A rise (of value or
+merit) that a shorter step cannot cure, because the radius is already at ``trust_min`` or the
+step was shorter, is accepted with a warning in ``OptimizationResult.warnings`` (noise-level
+rises near convergence). A ``reject_step`` request that cannot be cured that way, or
+``max_rejections`` consecutive rejections, end the run with status 'failed'.
 
 Other rules: when every criterion passes, ``objective.after_convergence(value)`` may redefine
 the objective (returns True); the loop then re-evaluates at the same geometry (one more
@@ -276,7 +279,7 @@ class Optimizer:
         step_cart = x_new - st.x
         if not decision.accept:
             stuck = decision.trust_radius >= length * (1.0 - 1e-9)
-            if stuck and not value.reject_step and not composed:
+            if stuck and not value.reject_step:
                 self._warn(f"iteration {st.iteration + 1}: {decision.reason}; accepted because "
                            "a shorter step is not possible")
             else:
