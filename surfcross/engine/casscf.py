@@ -57,7 +57,9 @@ COUPLING_CONVENTION = (
     "tests/test_casscf_couplings.py; PySCF's bra/ket wording in its docstring suggests the "
     "opposite sign, so do not rely on it). use_etfs=False keeps the basis-function ('CSF') "
     "term, so h/(E_J - E_I) is the full derivative coupling including the motion of the atomic "
-    "orbitals. The overall sign follows the phases of the stored CI vectors and is therefore "
+    "orbitals; that term is proportional to E_J - E_I (zero at an intersection) and gives h a small "
+    "component along rigid translations/rotations away from the seam, so remove external "
+    "modes before building a branching plane. The overall sign follows the phases of the stored CI vectors and is therefore "
     "arbitrary: compare h across geometries only after aligning CI phases."
 )
 
