@@ -137,3 +137,32 @@ def test_disabled_tracking_follows_the_index_and_resume_keeps_roots(engine):
     assert resumed.reorderings == on.reorderings
     with pytest.raises(StateTrackingError):
         StateTracker(engine, ["S3"]).assign(b)  # no reference geometry yet
+
+
+def test_pair_tracking_keeps_the_pair_when_a_third_state_moves_between(engine):
+    # pair S1 (B1) / S2 (A2) through the same bend: the A1 state (S3 at the start) drops
+    # between them, so the pair ends on roots S1 and S3; irreps from PySCF's tables
+    start = engine.states(water(104.5))
+    irreps0 = state_irreps(water(104.5), start)
+    tracker = StateTracker(engine, ["S1", "S2"], pair=True)
+    tracker.start(start)
+    for theta in np.linspace(104.5, 135.0, 8)[1:]:
+        ev = engine.states(water(theta))
+        record = tracker.assign(ev)
+        tracker.accept(ev, record)
+        irreps = state_irreps(water(theta), ev)
+        assert sorted(irreps[int(r[1:]) - 1] for r in record.roots) == sorted(irreps0[:2])
+        energies = [ev.energy(r) for r in record.roots]
+        assert energies == sorted(energies)  # lower, upper by energy
+        assert min(record.confidence) > 0.9 and len(record.phases) == 2
+    assert record.roots == ("S1", "S3")
+
+
+def test_singlet_triplet_pair_is_followed_in_each_manifold(engine):
+    a, b = engine.states(water(104.5)), engine.states(water(108.0))
+    tracker = StateTracker(engine, ["T1", "S1"], pair=True)
+    first = tracker.start(a)
+    assert first.roots == ("T1", "S1")  # by energy: the triplet lies lower (PySCF CIS)
+    record = tracker.assign(b)
+    assert record.info["assignment"] == {"T1": "T1", "S1": "S1"}
+    assert set(record.overlaps) >= {"S", "T"}
