@@ -1,0 +1,105 @@
+"""Minimum-energy crossing point of two states, then its characterization."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any, Callable, Iterable, Sequence
+
+import numpy as np
+
+from ..analysis.branching import characterize_crossing, characterize_from_probe
+from ..analysis.probe import ProbeSettings, plane_from_value, probe_crossing
+from ..engine.base import MethodSpec
+from ..errors import InputError
+from ..geometry import Geometry
+from ..objectives.searches import choose_search, make_crossing_objective
+from ..states import StateLabel, parse_states
+from .build import build_coordinates, build_engine, build_optimizer, tracking_options
+from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
+from .run import finish_task, run_optimization, task_spec
+
+__all__ = ["find_crossing", "characterize"]
+
+log = logging.getLogger(__name__)
+
+#: starting trust radius of crossing searches (bohr), smaller than for minima
+CROSSING_TRUST_RADIUS = 0.1
+
+
+def _gap_preset(options: RunOptions) -> str:
+    return "tight" if options.convergence == "tight" else "default"
+
+
+def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
+                  method: MethodSpec, *, search: str = "auto", options: RunOptions = RunOptions(),
+                  run_dir: Any = None, observers: Iterable[Callable] = (), progress: bool = True,
+                  engine: Any = None, resume_state: dict | None = None) -> TaskResult:
+    """Locate the minimum-energy crossing point of two states from ``geometry``.
+
+    Parameters
+    ----------
+    states
+        Two labels, e.g. 'S1,S2' (conical intersection) or 'S1,T1' / 'S0,T1' (spin crossing).
+    search
+        'auto' (projected search with branching-plane updating, or with derivative couplings
+        when the engine has them, for states of one spin; spin-crossing search otherwise),
+        'penalty', 'projected' or 'spin'.
+    options
+        Convergence preset ('tight' also tightens the gap tolerance from 1e-3 to 1e-4 Eh),
+        tracking, step limit; ``characterize`` runs the in-plane probe and the branching
+        analysis at a converged point (about 7 extra evaluations).
+    """
+    labels = parse_states(states, count=2)
+    check_labels(geometry, labels)
+    name = choose_search(labels, search)
+    spec = prepare_method(method, labels)
+    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    objective = make_crossing_objective(engine, labels, name, preset=_gap_preset(options),
+                                        tracking_options=tracking_options(options))
+    composed = name != "penalty"
+    if composed and any(c.kind != "atom" for c in options.constraints):
+        raise InputError(f"the {name} search supports frozen atoms only; use the penalty search "
+                         "for bond/angle/dihedral constraints")
+    coords = build_coordinates(geometry, options, composed=composed)
+    optimizer = build_optimizer(objective, coords, options, trust_radius=CROSSING_TRUST_RADIUS)
+    spec_dict = task_spec("cross", geometry, labels, spec, options, search=name)
+    result = run_optimization(optimizer, geometry, run_dir, spec_dict, observers=observers,
+                              progress=progress, resume_state=resume_state)
+    warnings = method_warnings(spec, labels) + list(getattr(objective, "warnings", ()))
+    branching = None
+    data: dict[str, Any] = {}
+    if result.converged and options.characterize:
+        branching, probe = characterize(engine, result.value, same_spin=labels[0].manifold == labels[1].manifold)
+        if probe is not None:
+            data["probe"] = probe
+            if probe["verdict"] == "avoided":
+                warnings.append("the in-plane probe finds a finite gap at the centre: an avoided "
+                                "crossing, not a true intersection")
+    if result.value.evaluation is not None:
+        warnings += list(result.value.evaluation.warnings)
+    return finish_task("cross", result, labels, spec, run_dir, search=name, warnings=warnings,
+                       data=data, branching=branching)
+
+
+def characterize(engine: Any, value: Any, *, same_spin: bool) -> tuple[dict | None, dict | None]:
+    """Branching analysis (and the in-plane probe) at a converged crossing.
+
+    Uses the coupling vector h when the engine provides it; otherwise the probe's estimate of
+    the branching plane (labelled as an estimate). Different-spin crossings: gap direction only.
+    """
+    ev = value.evaluation
+    roots = value.info.get("roots") if value.info else None
+    if ev is None or not roots:
+        return None, None
+    lower, upper = (parse_states(roots, count=2))
+    g_lo, g_up = np.asarray(ev.gradient(lower)), np.asarray(ev.gradient(upper))
+    if not same_spin:
+        return characterize_crossing(g_lo, g_up, None, one_dimensional=True).to_dict(), None
+    probe = probe_crossing(engine, value.evaluation.geometry, [lower, upper],
+                           plane_from_value(value), ProbeSettings())
+    h = ev.couplings.get((lower, upper)) if ev.couplings else None
+    if h is not None:
+        character = characterize_crossing(g_lo, g_up, np.asarray(h), h_source="coupling")
+    else:
+        character = characterize_from_probe(probe, g_lo, g_up)
+    return character.to_dict(), probe.to_dict()
