@@ -169,12 +169,11 @@ class StateTracker:
         self._resume = None
         self._pending.clear()
         roots = self._ordered(evaluation, mapping)
-        return self._remember(evaluation, TrackingRecord(targets=tuple(map(str, self.targets)),
-                              roots=tuple(map(str, roots)),
-                              confidence=tuple(1.0 for _ in roots),
-                              phases=tuple(1 for _ in roots),
-                              info={"assignment": {str(t): str(r) for t, r in mapping.items()},
-                                    "started": True}))
+        record = TrackingRecord(
+            targets=tuple(map(str, self.targets)), roots=tuple(map(str, roots)),
+            confidence=tuple(1.0 for _ in roots), phases=tuple(1 for _ in roots),
+            info={"assignment": {str(t): str(r) for t, r in mapping.items()}, "started": True})
+        return self._remember(evaluation, record)
 
     def assign(self, evaluation) -> TrackingRecord:
         """Map the targets onto the roots of ``evaluation`` (vs the last accepted geometry)."""
