@@ -230,3 +230,31 @@ def test_low_excitation_warning():
     t1 = (ev.energy("T1") - ev.energy("S0")) * HARTREE_IN_EV
     assert t1 < 0.1
     assert any(w.startswith("T1:") and "TDA" in w for w in ev.warnings)
+
+
+def test_overlaps_at_the_same_geometry_are_the_identity():
+    # CIS/TDA states are orthonormal (the solver's eigenvectors of a symmetric matrix), so
+    # the delegated overlap of an evaluation with itself is the identity (Engine contract)
+    engine = make_engine(MethodSpec(method="cis", roots=2, triplet_roots=2))
+    ev = engine.states(WATER)
+    overlaps = engine.overlaps(ev, ev)
+    engine.close()
+    assert set(overlaps) == {"S", "T"}
+    for manifold, matrix in overlaps.items():
+        n = len(ev.manifold(manifold))
+        assert matrix.shape == (n, n)
+        np.testing.assert_allclose(np.abs(matrix), np.eye(n), atol=1e-8)
+
+
+def test_pyscf_output_goes_to_the_log_file_only(tmp_path, capfd):
+    # our rule: PySCF never writes to the terminal; with a log path it writes there
+    log = tmp_path / "pyscf.log"
+    engine = PySCFResponseEngine(MethodSpec(method="cis", roots=1), log_path=str(log))
+    engine.evaluate(WATER, ["S1"])
+    engine.close()
+    quiet = PySCFResponseEngine(MethodSpec(method="cis", roots=1))
+    quiet.evaluate(WATER, ["S1"])
+    quiet.close()
+    out, err = capfd.readouterr()
+    assert out == "" and err == ""
+    assert "converged SCF energy" in log.read_text()

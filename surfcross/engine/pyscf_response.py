@@ -21,6 +21,7 @@ matter with a higher-level (multireference) method.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import time
 from dataclasses import dataclass, field
@@ -89,11 +90,21 @@ class PySCFResponseEngine:
         return False
 
     # ------------------------------------------------------------------ states
-    def states(self, geometry: Geometry) -> Evaluation:
-        """Energies, properties and wavefunction data of every computed state at ``geometry``."""
+    def _pyscf_output(self) -> contextlib.AbstractContextManager:
+        """While PySCF runs: its warnings to stderr go to the log file too (never the terminal)."""
         from pyscf import lib
 
         lib.num_threads(self.spec.threads)
+        if self._log is None:
+            return contextlib.nullcontext()
+        return contextlib.redirect_stderr(self._log)
+
+    def states(self, geometry: Geometry) -> Evaluation:
+        """Energies, properties and wavefunction data of every computed state at ``geometry``."""
+        with self._pyscf_output():
+            return self._states(geometry)
+
+    def _states(self, geometry: Geometry) -> Evaluation:
         spec = self.spec
         unrestricted = geometry.spin > 0 or spec.unrestricted
         if spec.triplet_roots and geometry.spin > 0:
@@ -209,15 +220,13 @@ class PySCFResponseEngine:
             raise EngineError("gradients were asked for an evaluation this engine no longer "
                               "holds (only the most recent geometry is kept); call states() "
                               "again at that geometry")
-        from pyscf import lib
-
-        lib.num_threads(self.spec.threads)
         start = time.perf_counter()
         new = {}
-        for label in parse_states(labels):
-            evaluation.state(label)  # raises InputError for a state that was not computed
-            if label not in evaluation.gradients:
-                new[label] = self._gradient(held, label)
+        with self._pyscf_output():
+            for label in parse_states(labels):
+                evaluation.state(label)  # raises InputError for a state that was not computed
+                if label not in evaluation.gradients:
+                    new[label] = self._gradient(held, label)
         return evaluation.with_gradients(new, timings_s={"gradients": time.perf_counter() - start})
 
     def _gradient(self, held: _Held, label: StateLabel) -> np.ndarray:

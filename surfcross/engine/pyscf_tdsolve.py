@@ -69,6 +69,9 @@ def make_response(mf: Any, method: str, unrestricted: bool, singlet: bool, conv_
     else:
         cls = (rks.TDDFT if full else rks.TDA) if dft else (rhf.TDHF if full else rhf.TDA)
     td = cls(mf)
+    # declare the attributes set on this instance (threshold below, counting wrapper in
+    # _run_counted), so PySCF's attribute check does not write warnings to the terminal
+    td._keys = set(cls._keys) | {"positive_eig_threshold", "gen_vind"}
     if not unrestricted:
         td.singlet = singlet
     td.conv_tol = conv_tol
