@@ -13,6 +13,16 @@ Roots: ``roots`` excited states are asked; ``roots + 2`` are computed (room for 
 tracking). Every asked root must converge (else :class:`ResponseNotConvergedError`); the
 extra roots are reported only as far as they converged, contiguously from the bottom.
 
+Counts: ``scf_cycles`` are SCF iterations (all attempts, all references); ``response_iterations``
+are Davidson iterations, i.e. applications of the response matrix to a block of trial vectors,
+summed over all solves and retries. <S^2> is reported for unrestricted references and for
+unrestricted TDA/CIS states (exact for the CIS-type wavefunction); full-response (TDHF/TDDFT)
+states have no wavefunction, so their <S^2> is left empty.
+
+Instabilities: TDA keeps zero and negative roots (and warns below 0.1 eV); PySCF's full-response
+solver keeps positive roots only, so an instability there shows up as a missing or
+unconverged root instead: use TDA to see it.
+
 Known limits (also printed by the command line): linear response from a closed-shell
 reference gives S0/S1 crossings of the wrong dimensionality and no double excitations; full
 TDDFT can become unstable near such crossings (TDA is more robust). Check results that
