@@ -213,16 +213,19 @@ class SpringNetwork:
     """Harmonic springs between all atom pairs: E = sum_ij k (r_ij - r0_ij)^2 / 2.
 
     Rotation- and translation-invariant; minimum value 0 at any rigid copy of ``reference``.
-    An optional constant ``drift`` (natom, 3) is added to the gradient (not the value) to mimic
-    the small net force and torque of noisy engine gradients.
+    Optional ``net_force`` and ``net_torque`` (3-vectors, Eh/bohr and Eh/bohr^2) add a rigid
+    field f + t x (x_i - centroid) to the gradient (not the value), mimicking the small net
+    force and torque of noisy engine gradients; it has no internal component, so the minimum
+    does not move.
     """
 
-    def __init__(self, reference: Geometry, *, k: float = 0.5,
-                 drift: np.ndarray | None = None) -> None:
+    def __init__(self, reference: Geometry, *, k: float = 0.5, net_force=None,
+                 net_torque=None) -> None:
         self.reference = reference
         self.k = float(k)
         self.r0 = reference.distance_matrix_bohr()
-        self.drift = None if drift is None else np.asarray(drift, float).reshape(reference.natom, 3)
+        self.net_force = np.zeros(3) if net_force is None else np.asarray(net_force, float)
+        self.net_torque = np.zeros(3) if net_torque is None else np.asarray(net_torque, float)
         self.name = "spring network"
         self.evaluations = 0
         self.accepted = 0
@@ -237,8 +240,7 @@ class SpringNetwork:
         np.fill_diagonal(dev, 0.0)
         e = 0.25 * self.k * float((dev ** 2).sum())
         grad = self.k * ((dev / r)[:, :, None] * diff).sum(axis=1)
-        if self.drift is not None:
-            grad = grad + self.drift
+        grad = grad + self.net_force + np.cross(self.net_torque, x - x.mean(axis=0))
         return ObjectiveValue(value=e, gradient=grad, energies_eh={"springs": e})
 
     def accept(self, value: ObjectiveValue) -> None:
