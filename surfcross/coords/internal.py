@@ -20,10 +20,17 @@ driven to a target; :meth:`RedundantInternals.project_step` moves them by at mos
 5 degrees per step (``max_bond_step_bohr``, ``max_angle_step_deg``), and
 :meth:`RedundantInternals.displace` enforces the requested values to 1e-8.
 
+When no atom is frozen, rigid translations and rotations are projected out of the B rows
+(see :func:`~surfcross.coords.backtransform.working_b_matrix`).
+
 Limits: redundant internals suit covalent molecules. Weakly bound complexes are held by a
-few long "fragment link" bonds whose model force constants are only guesses; torsions about
-linear chains are not described (a warning names the count of missing motions). For such
-systems, or when back-transformation keeps failing, use Cartesian coordinates.
+few long "fragment link" bonds whose model force constants are only rough guesses; nearly
+straight units are described by lab-frame linear bends, and the set is rebuilt when an angle
+passes 178 degrees. If the set misses an internal motion a warning says so
+(:meth:`RedundantInternals.missing_motions`). For such systems, or when back-transformation
+keeps failing, use Cartesian coordinates. The coordinate system only changes how steps are
+taken, not what is found: the quality of a minimum or crossing is that of the electronic
+structure method, which must be checked with higher-level methods.
 """
 
 from __future__ import annotations
@@ -102,7 +109,10 @@ class RedundantInternals:
         settings: BackTransformSettings = BackTransformSettings(),
     ) -> None:
         self.symbols = tuple(normalize_symbol(s) for s in symbols)
-        xyz = np.asarray(coords_bohr, float).reshape(len(self.symbols), 3)
+        xyz = np.asarray(coords_bohr, float)
+        if xyz.shape != (len(self.symbols), 3):
+            raise InputError(f"coordinates of shape {xyz.shape} for {len(self.symbols)} atoms, "
+                             f"expected ({len(self.symbols)}, 3)")
         if len(self.symbols) < 2:
             raise InputError("internal coordinates need at least two atoms")
         self.bond_scale = float(bond_scale)
@@ -137,6 +147,9 @@ class RedundantInternals:
             now = float(values([p], xyz)[0])
             _check_well_defined(con, p, xyz)
             goal = now if con.target is None else _internal_units(con)
+            if prims.index(p) in index:
+                raise InputError(f"two constraints on the same {con.kind} (atoms "
+                                 f"{[a + 1 for a in con.atoms]}); give each coordinate once")
             index.append(prims.index(p))
             target.append(goal)
             resolved.append(replace(con, target=_user_units(con.kind, goal)))
@@ -178,7 +191,10 @@ class RedundantInternals:
         return b_matrix(self.primitives, np.asarray(coords_bohr, float).reshape(-1, 3))
 
     def gradient(self, coords_bohr: np.ndarray, gradient_cart: np.ndarray) -> np.ndarray:
-        """dE/dq (n,) from dE/dx (natom, 3), Eh/bohr; constrained and redundant parts removed."""
+        """dE/dq (n,) from dE/dx (natom, 3): Eh/bohr for bonds, Eh/rad otherwise.
+
+        Constrained and redundant parts are removed; frozen atoms' forces play no role.
+        """
         frame = self._frame(coords_bohr)
         gfree = np.asarray(gradient_cart, float).reshape(-1)[np.repeat(self._free, 3)]
         return frame.proj_c @ (frame.ginv @ (frame.bfree @ gfree))

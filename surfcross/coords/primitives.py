@@ -82,6 +82,11 @@ def label(p: Primitive, symbols: tuple[str, ...]) -> str:
     return text + " (fragment link)" if p.link else text
 
 
+def _cross(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """Cross product of two 3-vectors (np.cross is slow for single small vectors)."""
+    return np.array([u[1] * v[2] - u[2] * v[1], u[2] * v[0] - u[0] * v[2], u[0] * v[1] - u[1] * v[0]])
+
+
 def _unit(vec: np.ndarray) -> tuple[np.ndarray, float]:
     norm = float(np.linalg.norm(vec))
     return vec / norm, norm
@@ -103,7 +108,7 @@ def _angle(xyz: np.ndarray, atoms: tuple[int, ...]) -> tuple[float, dict[int, np
     eu, ru = _unit(xyz[a] - xyz[b])
     ev, rv = _unit(xyz[c] - xyz[b])
     cos_t = float(np.dot(eu, ev))
-    sin_t = float(np.linalg.norm(np.cross(eu, ev)))
+    sin_t = float(np.linalg.norm(_cross(eu, ev)))
     theta = float(np.arctan2(sin_t, cos_t))
     if sin_t < 1e-12:  # straight or folded: the angle has no usable derivative here
         return theta, {i: np.full(3, np.nan) for i in atoms}
@@ -141,11 +146,11 @@ def _dihedral(xyz: np.ndarray, atoms: tuple[int, ...]) -> tuple[float, dict[int,
     """
     a, b, c, d = atoms
     b1, b2, b3 = xyz[b] - xyz[a], xyz[c] - xyz[b], xyz[d] - xyz[c]
-    n1, n2 = np.cross(b1, b2), np.cross(b2, b3)
+    n1, n2 = _cross(b1, b2), _cross(b2, b3)
     g_len = float(np.linalg.norm(b2))
     phi = float(np.arctan2(g_len * np.dot(b1, n2), np.dot(n1, n2)))
     f_vec, g_vec, h_vec = -b1, -b2, b3
-    a_vec, b_vec = np.cross(f_vec, g_vec), np.cross(h_vec, g_vec)
+    a_vec, b_vec = _cross(f_vec, g_vec), _cross(h_vec, g_vec)
     a2, b2n = float(np.dot(a_vec, a_vec)), float(np.dot(b_vec, b_vec))
     da = -g_len / a2 * a_vec
     dd = g_len / b2n * b_vec
@@ -167,12 +172,12 @@ def _out_of_plane(xyz: np.ndarray, atoms: tuple[int, ...]) -> tuple[float, dict[
     """
     centre, a, b, d = atoms
     u, v = xyz[a] - xyz[centre], xyz[b] - xyz[centre]
-    n, n_len = _unit(np.cross(u, v))
+    n, n_len = _unit(_cross(u, v))
     e, w_len = _unit(xyz[d] - xyz[centre])
     s = float(np.clip(np.dot(n, e), -1.0, 1.0))
     p = (e - s * n) / n_len
     cos_q = np.sqrt(max(1.0 - s * s, 1e-300))
-    da, db = np.cross(v, p) / cos_q, np.cross(p, u) / cos_q
+    da, db = _cross(v, p) / cos_q, _cross(p, u) / cos_q
     dd = (n - s * e) / (w_len * cos_q)
     return float(np.arcsin(s)), {a: da, b: db, d: dd, centre: -(da + db + dd)}
 
