@@ -198,3 +198,59 @@ def test_child_directories(tmp_path):
     job = RunDirectory.create(tmp_path / "job")
     a = job.child("s1 min")
     assert a.path == tmp_path / "job" / "s1_min" and a.path.is_dir()
+
+
+class _Kill(Exception):
+    """Stands in for a kill: raised by an observer after the run record of a step is written."""
+
+
+def test_interrupted_run_resumes_from_the_run_directory(tmp_path):
+    # the real optimizer on the Rosenbrock valley of surfcross.testing (minimum at (1, 1),
+    # Rosenbrock 1960, a classic test function); killed after step 6, resumed from disk
+    from surfcross.coords.cartesian import CartesianCoordinates
+    from surfcross.optimize import Optimizer, OptimizerSettings
+    from surfcross.testing.surfaces import SURFACES, AnalyticObjective
+
+    surf = SURFACES["valley"]
+    settings = OptimizerSettings(initial_hessian="diagonal", max_iterations=150)
+
+    def optimizer(observers):
+        obj = AnalyticObjective.from_surface(surf)
+        opt = Optimizer(obj, CartesianCoordinates(obj.natom, project_external=False),
+                        settings=settings, observers=observers)
+        return obj, opt
+
+    obj, full_opt = optimizer([])
+    full = full_opt.run(obj.geometry(surf.start))
+    assert full.converged
+
+    run = RunDirectory.create(tmp_path / "valley")
+    run.save_task({"kind": "relax", "surface": surf.name, "geometry": obj.geometry(surf.start)})
+
+    def kill(rec):
+        if rec.accepted and rec.iteration == 6:
+            raise _Kill
+
+    obj, opt = optimizer(run.observers(progress=False) + [kill])
+    with pytest.raises(_Kill):
+        opt.run(obj.geometry(surf.start))
+
+    again = RunDirectory.reopen(run.path)
+    data = again.previous
+    assert data.iteration == 6 and data.task["surface"] == surf.name
+    obj2, opt2 = optimizer(again.observers(progress=False))
+    opt2.load_state_dict(data.resume_state)  # read back from HDF5, not the in-memory record
+    resumed = opt2.run(data.geometry)
+    assert resumed.converged and resumed.iterations == full.iterations
+    np.testing.assert_allclose(resumed.geometry.coords_bohr, full.geometry.coords_bohr, atol=1e-10)
+    # the record on disk is that of one uninterrupted run
+    frames = read_xyz_frames(run.trajectory_xyz, spin=1)  # one H atom: a doublet
+    steps = [parse_comment(f.title)["step"] for f in frames]
+    assert steps == list(range(full.iterations + 1))
+    np.testing.assert_allclose(frames[-1].coords_bohr, full.geometry.coords_bohr, atol=1e-9)
+    from surfcross.io.checkpoint import load_checkpoint
+    hist = load_checkpoint(run.checkpoint_h5).history
+    accepted = hist["iteration"][hist["accepted"]]
+    assert list(accepted) == list(range(full.iterations + 1))
+    np.testing.assert_allclose(hist["value_eh"][hist["accepted"]],
+                               [r.value.value for r in full.history if r.accepted], rtol=1e-10)

@@ -66,6 +66,7 @@ class RunDirectory:
         self._task: dict[str, Any] | None = dict(previous.task) if previous else None
         self._settings: dict[str, Any] | None = dict(previous.settings) if previous else None
         self._checkpoint: CheckpointWriter | None = None
+        self._last_frame = -1  # step of the last trajectory frame already on disk
 
     # ---------------------------------------------------------------- creation
     @classmethod
@@ -110,7 +111,9 @@ class RunDirectory:
         data = load_checkpoint(path / CHECKPOINT_FILE)
         last = trim_trajectory(path / TRAJECTORY_FILE, data.iteration)
         log.debug("reopened %s at step %d (trajectory up to step %d)", path, data.iteration, last)
-        return cls(path, previous=data)
+        run = cls(path, previous=data)
+        run._last_frame = last
+        return run
 
     def child(self, name: str) -> "RunDirectory":
         """A run directory for one task of a job, inside this one (``name`` made file-safe)."""
@@ -174,8 +177,7 @@ class RunDirectory:
         """Callables for the optimizer, each called with every StepRecord: trajectory writer,
         checkpoint writer, progress lines (in that order, so a kill between the first two
         leaves at most one extra trajectory frame, which :meth:`reopen` removes)."""
-        last = self.previous.iteration if self.previous and self.previous.records else -1
-        found = [TrajectoryWriter(self.trajectory_xyz, last_step=last), self._writer()]
+        found = [TrajectoryWriter(self.trajectory_xyz, last_step=self._last_frame), self._writer()]
         return found + [ProgressWriter()] if progress else found
 
     # ---------------------------------------------------------------- the end

@@ -11,11 +11,11 @@ component of the tested gradient in Eh/bohr). Any XYZ reader opens the file;
 
 from __future__ import annotations
 
+import math
 import os
 from pathlib import Path
 from typing import Any
 
-from ..geometry import parse_xyz
 from ..units import HARTREE_IN_EV
 
 __all__ = ["frame_comment", "parse_comment", "TrajectoryWriter", "trim_trajectory"]
@@ -69,6 +69,18 @@ class TrajectoryWriter:
         self.last_step = record.iteration
 
 
+def _atom_line(line: str) -> bool:
+    """True for a complete 'Symbol x y z' line (charge and spin are not known here, so the
+    frame is checked for shape only, not as a molecule)."""
+    parts = line.split()
+    if len(parts) != 4:
+        return False
+    try:
+        return all(math.isfinite(float(v)) for v in parts[1:])
+    except ValueError:
+        return False
+
+
 def trim_trajectory(path: str | os.PathLike, max_step: int) -> int:
     """Drop frames with a step above ``max_step`` (written after the last checkpoint of an
     interrupted run). Returns the step of the last frame kept (-1 when none is left).
@@ -90,9 +102,7 @@ def trim_trajectory(path: str | os.PathLike, max_step: int) -> int:
         frame = lines[pos:pos + natom + 2]
         if len(frame) < natom + 2 or not frame[-1].endswith("\n"):
             break
-        try:
-            parse_xyz("".join(frame))
-        except ValueError:
+        if not all(_atom_line(line) for line in frame[2:]):
             break
         step = parse_comment(frame[1]).get("step", last + 1)
         if int(step) > max_step:
