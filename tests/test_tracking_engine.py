@@ -166,3 +166,20 @@ def test_singlet_triplet_pair_is_followed_in_each_manifold(engine):
     record = tracker.assign(b)
     assert record.info["assignment"] == {"T1": "T1", "S1": "S1"}
     assert set(record.overlaps) >= {"S", "T"}
+
+
+def test_full_response_overlaps_are_approximate_but_assign_correctly():
+    # TDHF: X + Y of different roots are not orthogonal (the metric is X.X' - Y.Y'), so the
+    # CIS-like overlaps at one geometry deviate from the identity (common practice: exact
+    # only for CIS/TDA); the largest singular value scaling and the assignment still map
+    # every root onto itself
+    eng = make_engine(MethodSpec(method="tdhf", basis="sto-3g", roots=3))
+    ev = eng.states(water(104.5))
+    o = eng.overlaps(ev, ev)["S"]
+    off = np.abs(o - np.diag(np.diag(o)))
+    np.testing.assert_allclose(np.diag(o), 1.0, atol=1e-8)
+    assert 1e-3 < off.max() < 0.2
+    tracker = StateTracker(eng, ["S1", "S2", "S3"])
+    tracker.start(ev)
+    record = tracker.assign(ev)
+    assert record.roots == ("S1", "S2", "S3")
