@@ -208,9 +208,13 @@ class RedundantInternals:
         return self._pad(frame, left @ hfree @ left.T)
 
     def initial_hessian(self, symbols, coords_bohr: np.ndarray) -> np.ndarray:
-        """Diagonal Lindh (1995) model in q-space, projected like :meth:`hessian`, (n, n)."""
+        """Diagonal Lindh (1995) model in q-space, projected like :meth:`hessian`, (n, n).
+
+        ``symbols`` may be None to use those given at construction.
+        """
         xyz = np.asarray(coords_bohr, float).reshape(-1, 3)
-        consts = lindh_force_constants(tuple(normalize_symbol(s) for s in symbols), xyz, self.primitives)
+        symbols = self.symbols if symbols is None else tuple(normalize_symbol(s) for s in symbols)
+        consts = lindh_force_constants(symbols, xyz, self.primitives)
         return self._pad(self._frame(xyz), np.diag(consts))
 
     def project_step(self, coords_bohr: np.ndarray, dq: np.ndarray) -> np.ndarray:
