@@ -7,14 +7,38 @@ geometry, and the energy change on the objective value (common practice for mini
 
 from __future__ import annotations
 
-from typing import Sequence
+from typing import Any, Sequence
 
 import numpy as np
 
+from ..coords.cartesian import external_basis
 from ..objectives.base import Criterion
 from .settings import ConvergenceSettings
 
-__all__ = ["evaluate_criteria", "all_passed"]
+__all__ = ["evaluate_criteria", "all_passed", "cartesian_test_gradient"]
+
+
+def cartesian_test_gradient(coords: Any, coords_bohr: np.ndarray, gradient: np.ndarray) -> np.ndarray:
+    """Cartesian gradient for the force tests, without removed or constrained directions.
+
+    Uses the coordinate system's own Cartesian projection (``project_cartesian``) when it has
+    one; for systems with a Wilson B matrix, B^T g_q (the part of the gradient the
+    coordinates can act on, frozen atoms zeroed); otherwise only rigid-body motion is removed.
+    """
+    g = np.asarray(gradient, float)
+    x = np.asarray(coords_bohr, float)
+    project = getattr(coords, "project_cartesian", None)
+    if callable(project):
+        return np.asarray(project(x, g)).reshape(g.shape)
+    bmat = getattr(coords, "b_matrix", None)
+    if callable(bmat):
+        out = (np.asarray(bmat(x)).T @ coords.gradient(x, g)).reshape(g.shape)
+        out[list(getattr(coords, "frozen_atoms", ()))] = 0.0
+        return out
+    if len(x) >= 3:
+        V = external_basis(x)
+        return (g.ravel() - V.T @ (V @ g.ravel())).reshape(g.shape)
+    return g
 
 
 def _max_rms(v: np.ndarray) -> tuple[float, float]:

@@ -49,11 +49,10 @@ from typing import Any, Callable, Iterable, Iterator, Mapping
 
 import numpy as np
 
-from ..coords.cartesian import external_basis
 from ..errors import BackTransformError, CheckpointError, EngineError, InputError
 from ..geometry import Geometry
 from ..objectives.base import Objective, ObjectiveValue
-from .convergence import all_passed, evaluate_criteria
+from .convergence import all_passed, cartesian_test_gradient, evaluate_criteria
 from .records import OptimizationResult, Status, StepRecord
 from .settings import ConvergenceSettings, OptimizerSettings
 from .steps import cap_atom_displacement, quadratic_change, rfo_step, working_hessian
@@ -390,16 +389,6 @@ class Optimizer:
         return clamp_eigenvalues(np.asarray(H, float), self.settings.min_curvature,
                                  self.settings.max_curvature)
 
-    def _test_gradient(self, x: np.ndarray, value: ObjectiveValue) -> np.ndarray:
-        g = np.asarray(value.test_gradient, float)
-        project = getattr(self.coords, "project_cartesian", None)
-        if callable(project):
-            return np.asarray(project(x, g)).reshape(g.shape)
-        if len(x) >= 3:
-            V = external_basis(x)
-            return (g.ravel() - V.T @ (V @ g.ravel())).reshape(g.shape)
-        return g
-
     def _record(self, st: _State, geometry: Geometry, value: ObjectiveValue, *, accepted: bool,
                 step: np.ndarray | None = None, message: str = "") -> StepRecord:
         x = np.asarray(geometry.coords_bohr)
@@ -408,8 +397,9 @@ class Optimizer:
         else:
             prev = st.value.value
         change = None if prev is None else value.value - prev
-        criteria = evaluate_criteria(self.convergence, self._test_gradient(x, value), step,
-                                     change, value.extra_criteria)
+        test_gradient = cartesian_test_gradient(self.coords, x, value.test_gradient)
+        criteria = evaluate_criteria(self.convergence, test_gradient, step, change,
+                                     value.extra_criteria)
         rec = StepRecord(
             iteration=st.iteration + (0 if accepted else 1), geometry=geometry, value=value,
             criteria=criteria, step_bohr=np.zeros_like(x) if step is None else np.array(step),
@@ -417,7 +407,8 @@ class Optimizer:
             elapsed_s=time.perf_counter() - self._t0, message=message,
             resume_state=self._resume_state(st))
         logger.info("iteration %d%s value %.10f max force %.2e trust %.3f %s", rec.iteration,
-                    "" if accepted else " (rejected)", value.value, rec.max_force, st.trust, message)
+                    "" if accepted else " (rejected)", value.value,
+                    float(np.abs(test_gradient).max()), st.trust, message)
         return rec
 
     def _resume_state(self, st: _State) -> dict[str, Any]:
