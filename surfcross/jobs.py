@@ -232,9 +232,20 @@ class TaskSpec:
     options: Mapping[str, Any] = field(default_factory=dict)
     start_from: str | None = None
 
+    def __post_init__(self) -> None:
+        if not isinstance(self.options, types.MappingProxyType):
+            object.__setattr__(self, "options", types.MappingProxyType(dict(self.options)))
+
+    def __reduce__(self):  # a read-only mapping does not pickle by itself
+        return (_task_spec, (self.name, self.kind, dict(self.options), self.start_from))
+
     def to_dict(self) -> dict[str, Any]:
         return {"name": self.name, "kind": self.kind, "options": dict(self.options),
                 "start_from": self.start_from}
+
+
+def _task_spec(name: str, kind: str, options: dict[str, Any], start_from: str | None) -> TaskSpec:
+    return TaskSpec(name=name, kind=kind, options=options, start_from=start_from)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -392,8 +403,7 @@ def _task(raw: Any, index: int, ctx: _Context, names: set[str]) -> TaskSpec:
     if kind.check is not None:
         kind.check(options, where)
     ctx.earlier[name] = kind
-    return TaskSpec(name=name, kind=kind.name, options=types.MappingProxyType(options),
-                    start_from=start)
+    return TaskSpec(name=name, kind=kind.name, options=options, start_from=start)
 
 
 def job_from_dict(data: Mapping[str, Any], *, source: str = "job",

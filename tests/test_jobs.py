@@ -89,6 +89,9 @@ def test_good_job(job_dir):
     with pytest.raises(TypeError):
         ground.options["state"] = "S1"  # read-only
     assert job.task("scan") is scan
+    import pickle  # jobs travel to worker processes
+    again = pickle.loads(pickle.dumps(job))
+    assert again.tasks == job.tasks and again.method == job.method
     assert job.source == (job_dir / "job.toml").resolve()
 
 

@@ -36,10 +36,10 @@ def _figure():
 def have_matplotlib() -> bool:
     """True when matplotlib can be imported."""
     try:
-        import matplotlib  # noqa: F401
+        import matplotlib
     except ImportError:
         return False
-    return True
+    return matplotlib is not None
 
 
 def _save(fig: Any, path: str | os.PathLike) -> Path:
