@@ -283,3 +283,59 @@ def test_value_is_objective_value_type():
     res = Optimizer(obj, coords, settings=settings).run(obj.geometry(surf.start))
     assert isinstance(res.value, ObjectiveValue)
     assert res.energies_eh == {"bowl": res.value.value}
+
+
+class RebuildingCartesian(CartesianCoordinates):
+    """Asks for one rebuild after the second accepted geometry (like a bond that formed)."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.calls = 0
+        self.rebuilds = [0]
+
+    def needs_rebuild(self, coords_bohr):
+        self.calls += 1
+        return self.calls == 2 and self.rebuilds[0] == 0
+
+    def rebuilt(self, coords_bohr):
+        self.rebuilds[0] += 1
+        new = RebuildingCartesian(self.natom, project_external=False)
+        new.rebuilds = self.rebuilds
+        new.calls = 99
+        return new
+
+
+def test_coordinate_rebuild_reinitializes_the_hessian():
+    surf = SURFACES["tilted_bowl"]
+    obj = AnalyticObjective.from_surface(surf)
+    coords = RebuildingCartesian(2, project_external=False)
+    settings = OptimizerSettings(initial_hessian="diagonal", diagonal_curvature=0.7)
+    opt = Optimizer(obj, coords, settings=settings, convergence=TIGHT)
+    res = opt.run(obj.geometry(surf.start))
+    assert coords.rebuilds == [1] and opt.coords is not coords
+    rec2 = [r for r in res.history if r.accepted][2]
+    assert np.allclose(rec2.resume_state["hessian"], 0.7 * np.eye(6))
+    assert res.converged and np.allclose(obj.variables(res.geometry), surf.minimum, atol=2e-4)
+
+
+class FragileCartesian(CartesianCoordinates):
+    """Refuses steps longer than 0.2 bohr, as a failing back-transformation would."""
+
+    def displace(self, coords_bohr, dq):
+        from surfcross.errors import BackTransformError
+
+        if np.linalg.norm(dq) > 0.2:
+            raise BackTransformError("step too long for the back-transformation")
+        return super().displace(coords_bohr, dq)
+
+
+def test_failed_displacement_shortens_the_step():
+    surf = SURFACES["bowl"]
+    obj = AnalyticObjective.from_surface(surf)
+    settings = OptimizerSettings(initial_hessian="diagonal", trust_radius=0.6)
+    res = Optimizer(obj, FragileCartesian(1, project_external=False), settings=settings,
+                    convergence=TIGHT).run(obj.geometry(surf.start))
+    assert res.converged
+    assert any("trial step failed" in w for w in res.warnings)
+    assert all(r.step_length <= 0.2 + 1e-12 for r in res.history)
+    assert np.allclose(obj.variables(res.geometry), surf.minimum, atol=2e-4)

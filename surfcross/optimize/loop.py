@@ -215,6 +215,7 @@ class Optimizer:
             self.evaluations = int(state["evaluations"])
         else:
             self.evaluations = 0
+            self.update = make_update(self.settings.hessian_update, self.settings.curvature_policy)
         value = self._evaluate(geometry)
         if value is None:
             raise EngineError("the objective gave a non-finite value or gradient at the start "
