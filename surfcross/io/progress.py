@@ -83,7 +83,8 @@ def step_line(record: Any, previous_roots: Iterable[str] = ()) -> str:
     roots = _roots(value)
     previous = tuple(previous_roots)
     if roots and roots != previous:
-        targets = tuple(value.energies_eh) or roots
+        tracking = getattr(value, "tracking", None)
+        targets = tuple(getattr(tracking, "targets", ()) or value.energies_eh) or roots
         follow = ", ".join(f"{t} on root {r}" for t, r in zip(targets, roots))
         parts.append(f"[following {follow}]" if not previous else f"[root change: {follow}]")
     if record.converged:

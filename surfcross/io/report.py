@@ -84,16 +84,21 @@ def _table(header: Sequence[str], rows: Iterable[Sequence[Any]]) -> list[str]:
     return lines
 
 
+def _field(item: Any, key: str, default: Any = None) -> Any:
+    """``item[key]`` for dicts, ``item.key`` for objects such as Criterion."""
+    if isinstance(item, Mapping):
+        return item.get(key, default)
+    return getattr(item, key, default)
+
+
 def _criteria_section(criteria: Sequence[Any]) -> list[str]:
     if not criteria:
         return ["No convergence tests were recorded for this task."]
     rows = []
     for c in criteria:
-        get = (lambda k: c[k]) if isinstance(c, Mapping) else (lambda k: getattr(c, k))
-        value, threshold = float(get("value")), float(get("threshold"))
-        unit = get("unit") if (isinstance(c, Mapping) and "unit" in c) or hasattr(c, "unit") else ""
-        rows.append((get("name"), f"{value:.3e}", f"{threshold:.3e}", unit or "",
-                     "yes" if abs(value) <= threshold else "no"))
+        value, threshold = float(_field(c, "value")), float(_field(c, "threshold"))
+        rows.append((str(_field(c, "name")), f"{value:.3e}", f"{threshold:.3e}",
+                     str(_field(c, "unit", "") or ""), "yes" if abs(value) <= threshold else "no"))
     return _table(("criterion", "value", "threshold", "unit", "passed"), rows)
 
 

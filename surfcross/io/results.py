@@ -154,9 +154,7 @@ def result_dict(*, task: str, result: Any, states: Sequence[str | StateLabel],
     """
     value = result.value
     gap_eh = value.gap_eh
-    warnings = list(result.warnings)
-    notes = reorderings(result.history)
-    warnings += [f"state reordering at {n}" for n in notes if f"state reordering at {n}" not in warnings]
+    warnings = list(result.warnings) + [f"state reordering at {n}" for n in reorderings(result.history)]
     out: dict[str, Any] = {
         "task": task,
         "converged": bool(result.converged),
