@@ -176,7 +176,7 @@ class Optimizer:
                 rec = next(gen)
             except StopIteration as done:
                 self.outcome = done.value
-                logger.info("optimization ended: %s (%s)", done.value[0].value, done.value[1])
+                logger.debug("optimization ended: %s (%s)", done.value[0].value, done.value[1])
                 return
             yield rec
 
@@ -407,7 +407,7 @@ class Optimizer:
             trust_radius=st.trust, accepted=accepted, evaluations=self.evaluations,
             elapsed_s=time.perf_counter() - self._t0, message=message,
             resume_state=self._resume_state(st))
-        logger.info("iteration %d%s value %.10f max force %.2e trust %.3f %s", rec.iteration,
+        logger.debug("iteration %d%s value %.10f max force %.2e trust %.3f %s", rec.iteration,
                     "" if accepted else " (rejected)", value.value,
                     float(np.abs(test_gradient).max()), st.trust, message)
         return rec
