@@ -119,16 +119,28 @@ def all_state_energies(value: Any) -> dict[str, float]:
 
 def reorderings(history: Iterable[Any]) -> list[str]:
     """Human-readable notes for every accepted step at which a followed state moved to
-    another adiabatic root (from ``record.value.tracking``)."""
+    another adiabatic root (from ``record.value.tracking``).
+
+    Uses the tracker's target -> root assignment when it is recorded (pairs list their roots
+    by energy, so zipping targets with roots would mislabel them); falls back to the order of
+    ``roots`` otherwise.
+    """
     notes = []
+    last: dict[str, str] = {}
     for rec in history:
         tracking = getattr(rec.value, "tracking", None)
-        if not rec.accepted or tracking is None or not tracking.reordered:
+        if not rec.accepted or tracking is None:
             continue
-        moves = [f"{t} now root {r} (was {p})"
-                 for t, r, p in zip(tracking.targets, tracking.roots, tracking.previous_roots)
-                 if r != p]
-        notes.append(f"step {rec.iteration}: " + "; ".join(moves or [str(tracking.roots)]))
+        assignment = dict((tracking.info or {}).get("assignment", {}))
+        if not assignment:
+            assignment = {str(t): str(r) for t, r in zip(tracking.targets, tracking.roots)}
+            if tracking.previous_roots and not last:
+                last = {str(t): str(p) for t, p in zip(tracking.targets, tracking.previous_roots)}
+        moves = [f"{t} now root {r} (was {last[t]})" for t, r in assignment.items()
+                 if t in last and last[t] != r]
+        if moves:
+            notes.append(f"step {rec.iteration}: " + "; ".join(moves))
+        last = assignment
     return notes
 
 
