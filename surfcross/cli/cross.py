@@ -26,6 +26,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     parser.add_argument("--search", default="auto", choices=list(SEARCHES),
                         help="auto: projected search (same spin) or spin-crossing search "
                              "(different spin); penalty: smoothed penalty function (default: auto)")
+    parser.add_argument("--gap-tol", type=float, default=None, metavar="EH",
+                        help="largest gap accepted as a crossing, hartree (default: 1e-3; "
+                             "1e-4 with --converge tight)")
     add_method_options(parser)
     add_run_options(parser, crossing=True)
     parser.set_defaults(handler=run)
@@ -39,6 +42,7 @@ def run(args: argparse.Namespace) -> int:
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "cross")
     result = find_crossing(geometry, labels, spec, search=args.search, options=options,
-                           run_dir=run_dir, progress=not args.quiet)
+                           run_dir=run_dir, progress=not args.quiet,
+                           gap_tolerance_eh=args.gap_tol)
     print_summary(result)
     return exit_code(result)

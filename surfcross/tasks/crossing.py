@@ -12,7 +12,8 @@ from ..analysis.probe import ProbeSettings, plane_from_value, probe_crossing
 from ..engine.base import MethodSpec
 from ..errors import InputError
 from ..geometry import Geometry
-from ..objectives.searches import choose_search, make_crossing_objective
+from ..objectives.searches import (choose_search, default_settings, make_crossing_objective,
+                                   with_gap_tolerance)
 from ..states import StateLabel, parse_states
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
 from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
@@ -33,7 +34,8 @@ def _gap_preset(options: RunOptions) -> str:
 def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                   method: MethodSpec, *, search: str = "auto", options: RunOptions = RunOptions(),
                   run_dir: Any = None, observers: Iterable[Callable] = (), progress: bool = True,
-                  engine: Any = None, resume_state: dict | None = None) -> TaskResult:
+                  engine: Any = None, resume_state: dict | None = None,
+                  gap_tolerance_eh: float | None = None) -> TaskResult:
     """Locate the minimum-energy crossing point of two states from ``geometry``.
 
     Parameters
@@ -48,13 +50,20 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
         Convergence preset ('tight' also tightens the gap tolerance from 1e-3 to 1e-4 Eh),
         tracking, step limit; ``characterize`` runs the in-plane probe and the branching
         analysis at a converged point (about 7 extra evaluations).
+    gap_tolerance_eh
+        Largest gap accepted as a crossing (Eh); default 1e-3 (1e-4 with 'tight').
     """
     labels = parse_states(states, count=2)
     check_labels(geometry, labels)
     name = choose_search(labels, search)
     spec = prepare_method(method, labels)
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
-    objective = make_crossing_objective(engine, labels, name, preset=_gap_preset(options),
+    settings = default_settings(name, _gap_preset(options))
+    if gap_tolerance_eh is not None:
+        if not gap_tolerance_eh > 0:
+            raise InputError(f"the gap tolerance must be positive, got {gap_tolerance_eh}")
+        settings = with_gap_tolerance(settings, float(gap_tolerance_eh))
+    objective = make_crossing_objective(engine, labels, name, settings,
                                         tracking_options=tracking_options(options))
     composed = name != "penalty"
     if composed and any(c.kind != "atom" for c in options.constraints):
@@ -62,7 +71,8 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                          "for bond/angle/dihedral constraints")
     coords = build_coordinates(geometry, options, composed=composed)
     optimizer = build_optimizer(objective, coords, options, trust_radius=CROSSING_TRUST_RADIUS)
-    spec_dict = task_spec("cross", geometry, labels, spec, options, search=name)
+    spec_dict = task_spec("cross", geometry, labels, spec, options, search=name,
+                          gap_tolerance_eh=settings.gap_tol_eh)
     result = run_optimization(optimizer, geometry, run_dir, spec_dict, observers=observers,
                               progress=progress, resume_state=resume_state)
     warnings = method_warnings(spec, labels) + list(getattr(objective, "warnings", ()))

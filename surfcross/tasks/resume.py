@@ -49,5 +49,6 @@ def resume(path: str | Path, *, progress: bool = True) -> TaskResult:
 
         return find_crossing(start, task["states"], method, search=task.get("search", "auto"),
                              options=options, run_dir=run_dir, progress=progress,
-                             resume_state=dict(data.resume_state))
+                             resume_state=dict(data.resume_state),
+                             gap_tolerance_eh=task.get("gap_tolerance_eh"))
     raise CheckpointError(f"{path}: cannot resume a task of kind {kind!r}")
