@@ -125,7 +125,15 @@ def pair_warnings(engine: Engine, targets: Sequence[StateLabel]) -> tuple[str, .
     out = []
     method = getattr(getattr(engine, "spec", None), "method", "")
     model = bool(getattr(engine, "is_model", False))
-    if not model and method in _RESPONSE_METHODS and any(t.is_reference for t in targets):
+    high_spin = getattr(getattr(engine, "spec", None), "triplets", "") == "high-spin"
+
+    def is_response(label: StateLabel) -> bool:  # an excited state of linear response
+        if label.is_reference:
+            return False
+        return not (label.manifold == "T" and label.index == 1 and high_spin)
+
+    if (not model and method in _RESPONSE_METHODS and any(t.is_reference for t in targets)
+            and any(is_response(t) for t in targets)):
         ref = next(t for t in targets if t.is_reference)
         out.append(
             f"The pair contains the reference state {ref}: with {method.upper()} (a closed-shell "
@@ -340,13 +348,24 @@ def gap_criterion(gap: float, tol: float):
 def merit_weight(pair: PairEvaluation, fixed: float | None) -> float:
     """Weight mu of the gap in the step-acceptance merit Ebar + mu * dE.
 
-    The merit is an exact (L1) penalty: it decreases along a step toward the seam only when
-    mu exceeds the magnitude of the Lagrange multiplier |gbar.x-hat|/|x1|; we take twice that
-    at the start (at least 1) and keep it fixed for the run, so merits stay comparable.
+    The merit is an exact (L1) penalty: a step toward the seam lowers it only while mu exceeds
+    the Lagrange multiplier lambda = |gbar.x-hat|/|x1| of the crossing, which is unknown at the
+    start and grows along typical paths (about 0.3 -> 1 for methylene's singlet/triplet
+    crossing). We take mu = max(3, 4 |gbar|/|x1|) at the start (|gbar|/|x1| bounds lambda
+    there) and keep it fixed for the run, so that the merits of all points stay comparable.
     """
     if fixed is not None:
         return float(fixed)
-    xhat, n1 = unit(pair.x1)
+    n1 = float(np.linalg.norm(pair.x1))
     if n1 == 0.0:
-        return 1.0
-    return max(1.0, 2.0 * abs(float(pair.gbar @ xhat)) / n1)
+        return 3.0
+    return max(3.0, 4.0 * float(np.linalg.norm(pair.gbar)) / n1)
+
+
+def check_merit_weight(objective: "CrossingObjectiveBase", pair: PairEvaluation,
+                       mu: float) -> None:
+    """Warn once when the local multiplier exceeds the merit weight (steps may be refused)."""
+    n1 = float(np.linalg.norm(pair.x1))
+    if n1 > 0 and abs(float(pair.gbar @ pair.x1)) / n1**2 > mu:
+        objective.warn(f"the crossing's Lagrange multiplier exceeds the merit weight {mu:.3g}; "
+                       "if steps keep being rejected, set a larger merit_gap_weight")

@@ -38,7 +38,7 @@ from ..errors import InputError
 from ..states import StateLabel
 from .base import ObjectiveValue, SubspaceModel
 from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation, gap_criterion,
-                       merit_weight, remove_external, unit)
+                       check_merit_weight, merit_weight, remove_external, unit)
 
 __all__ = ["ProjectedSettings", "ProjectedObjective", "update_plane_vector", "initial_plane_vector"]
 
@@ -181,6 +181,7 @@ class ProjectedObjective(CrossingObjectiveBase):
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev, self.y_prev = payload
+        check_merit_weight(self, pair, self.mu)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()

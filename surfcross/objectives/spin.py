@@ -30,7 +30,7 @@ from ..errors import InputError
 from ..states import StateLabel
 from .base import ObjectiveValue, SubspaceModel
 from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation, gap_criterion,
-                       merit_weight, unit)
+                       check_merit_weight, merit_weight, unit)
 
 __all__ = ["SpinSettings", "SpinCrossingObjective"]
 
@@ -100,6 +100,7 @@ class SpinCrossingObjective(CrossingObjectiveBase):
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev = payload
+        check_merit_weight(self, pair, self.mu)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()
