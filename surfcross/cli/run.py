@@ -1,0 +1,69 @@
+"""``surfcross run JOB.toml``: the tasks of a job file, in order, in one job folder."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..jobs import read_job
+from ..jobs.runner import JobResult, TaskOutcome, run_job
+from ..tasks.common import LIMITS_NOTE
+from ..units import HARTREE_IN_EV
+
+__all__ = ["add_parser", "run", "job_summary_lines"]
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "run", help="run the tasks of a TOML job file",
+        description="Run the tasks of a job file in order (README, 'Job files'). Each task "
+                    "gets a folder inside the job folder; a task can start from the final "
+                    "geometry of an earlier one. summary.json in the job folder lists them all.")
+    parser.add_argument("job", metavar="JOB.toml", help="the job file")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="job folder (default: 'output' of the job file, else a folder "
+                             "named after the job file)")
+    parser.add_argument("--keep-going", action="store_true",
+                        help="run the remaining tasks after one fails or does not converge "
+                             "(tasks starting from it are skipped)")
+    parser.set_defaults(handler=run)
+    return parser
+
+
+def _task_line(o: TaskOutcome) -> str:
+    where = f"  [{o.run_dir.name}]" if o.run_dir is not None else ""
+    head = f"  {o.name} ({o.kind}): {o.status}"
+    if o.result is None:
+        return head + (f" -- {o.message}" if o.message else "") + where
+    r = o.result
+    if r.task != "states":
+        head += f" after {r.iterations} steps"
+    parts = [f"E({k}) = {v:.8f} Eh" for k, v in r.data.get("target_energies_eh", {}).items()]
+    if r.data.get("gap_ev") is not None:
+        parts.append(f"gap {r.data['gap_ev'] / HARTREE_IN_EV:.1e} Eh")
+    if r.task == "states":
+        parts += [f"{row['label']} {row['excitation_ev']:.3f} eV"
+                  for row in o.vertical_rows()[:4] if row["excitation_ev"] > 0]
+    return head + ("; " + ", ".join(parts) if parts else "") + where
+
+
+def job_summary_lines(result: JobResult) -> list[str]:
+    """The end-of-job summary (one line per task)."""
+    done = sum(o.converged for o in result.outcomes)
+    lines = [f"job {result.title or ''}: {done} of {len(result.outcomes)} task(s) "
+             f"converged/finished in {result.elapsed_s:.0f} s; folder {result.run_dir}"]
+    lines += [_task_line(o) for o in result.outcomes]
+    warnings = []
+    for o in result.outcomes:
+        for w in (o.result.warnings if o.result is not None else ()):
+            if w not in warnings:
+                warnings.append(w)
+    lines += [f"  warning: {w}" for w in warnings]
+    lines.append(f"  note: {LIMITS_NOTE}")
+    return lines
+
+
+def run(args: argparse.Namespace) -> int:
+    job = read_job(args.job)
+    result = run_job(job, out=args.out, keep_going=args.keep_going, progress=not args.quiet)
+    print("\n".join(job_summary_lines(result)))
+    return 0 if result.converged else 1
