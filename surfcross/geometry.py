@@ -220,8 +220,12 @@ def parse_xyz(text: str, charge: int = 0, spin: int = 0, source: str = "XYZ inpu
                     f"{source}, line {pos + 3 + k}: expected 'Symbol x y z' (angstrom), "
                     f"found {ln.strip()[:60]!r}"
                 )
-            symbols.append(m.group(1))
+            try:
+                symbols.append(elements.normalize_symbol(m.group(1)))
+            except InputError as exc:
+                raise InputError(f"{source}, line {pos + 3 + k}: {exc}") from None
             coords.append([float(m.group(g).replace("d", "e").replace("D", "E")) for g in (2, 3, 4)])
+        _check_close_lines(symbols, coords, source, first_line=pos + 3)
         pos += 2 + natom
         # a following line that is neither blank nor a frame header means too many atom lines
         if pos < len(lines) and lines[pos].strip() and _ATOM_LINE.match(lines[pos]):
@@ -232,6 +236,22 @@ def parse_xyz(text: str, charge: int = 0, spin: int = 0, source: str = "XYZ inpu
     if not frames:
         raise InputError(f"{source} is empty: expected an XYZ geometry")
     return frames
+
+
+def _check_close_lines(symbols: list[str], coords: list[list[float]], source: str,
+                       first_line: int) -> None:
+    """InputError naming the file lines of two atoms closer than MIN_DISTANCE_ANGSTROM."""
+    xyz = np.asarray(coords, float)
+    if len(xyz) < 2:
+        return
+    d = np.sqrt(((xyz[:, None, :] - xyz[None, :, :]) ** 2).sum(-1))
+    d[np.diag_indices(len(xyz))] = np.inf
+    i, j = sorted(int(k) for k in np.unravel_index(np.argmin(d), d.shape))
+    if d[i, j] < MIN_DISTANCE_ANGSTROM:
+        raise InputError(
+            f"{source}, lines {first_line + i} and {first_line + j}: atoms {i + 1} ({symbols[i]}) "
+            f"and {j + 1} ({symbols[j]}) are only {d[i, j]:.3f} angstrom apart (check the "
+            "coordinates are in angstrom and no line is repeated)")
 
 
 def read_xyz_frames(path: str | os.PathLike, charge: int = 0, spin: int = 0) -> list[Geometry]:

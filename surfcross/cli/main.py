@@ -11,7 +11,7 @@ import importlib
 import logging
 import sys
 
-from ..errors import InputError, SurfcrossError
+from ..errors import CheckpointError, InputError, SurfcrossError
 
 __all__ = ["main", "build_parser", "SUBCOMMANDS"]
 
@@ -51,6 +51,10 @@ def _configure_logging(verbose: int, quiet: bool) -> None:
     root.propagate = False
 
 
+def _one_line(exc: Exception) -> str:
+    return " ".join(str(exc).split())
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -60,11 +64,11 @@ def main(argv: list[str] | None = None) -> int:
     _configure_logging(args.verbose, args.quiet)
     try:
         return int(args.handler(args))
-    except InputError as exc:
-        print(f"surfcross: error: {exc}", file=sys.stderr)
+    except (InputError, CheckpointError) as exc:  # bad input, or a run that cannot continue
+        print(f"surfcross: error: {_one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except SurfcrossError as exc:
-        print(f"surfcross: failed: {exc}", file=sys.stderr)
+        print(f"surfcross: failed: {_one_line(exc)}", file=sys.stderr)
         return EXIT_NOT_CONVERGED
     except KeyboardInterrupt:
         print("surfcross: interrupted; 'surfcross resume DIR' continues from the checkpoint",

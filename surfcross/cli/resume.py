@@ -16,11 +16,15 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         description="Continue a relax or cross run whose process was stopped (queue limit, "
                     "signal, step limit) from the last step saved in DIR/checkpoint.h5.")
     parser.add_argument("directory", metavar="DIR", help="the run directory")
+    parser.add_argument("--more-steps", type=int, default=None, metavar="N",
+                        help="steps allowed from the checkpoint on (default: a run stopped at "
+                             "its step limit gets its original limit again; an interrupted run "
+                             "keeps its limit)")
     parser.set_defaults(handler=run)
     return parser
 
 
 def run(args: argparse.Namespace) -> int:
-    result = resume(args.directory, progress=not args.quiet)
+    result = resume(args.directory, progress=not args.quiet, more_steps=args.more_steps)
     print_summary(result)
     return exit_code(result)

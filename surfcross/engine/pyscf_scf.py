@@ -9,6 +9,7 @@ in the overlap metric of the new one, as the density guess.
 from __future__ import annotations
 
 import logging
+import warnings
 from dataclasses import dataclass
 from typing import IO, Any
 
@@ -56,9 +57,13 @@ def build_molecule(geometry: Geometry, spec: MethodSpec, spin: int, stdout: IO |
     if stdout is not None:
         mol.stdout = stdout
     try:
-        mol.build(dump_input=False, parse_arg=False)
+        with warnings.catch_warnings():  # PySCF's hint for unknown basis names is not one line
+            warnings.filterwarnings("ignore", message="Basis may be available", category=UserWarning)
+            mol.build(dump_input=False, parse_arg=False)
     except (KeyError, RuntimeError, ValueError) as exc:
-        raise InputError(f"PySCF cannot build the molecule with basis {spec.basis!r}: {exc}") from None
+        reason = " ".join(str(exc).split())
+        raise InputError(f"PySCF cannot build the molecule with basis {spec.basis!r}: {reason}; "
+                         "check the basis name (e.g. sto-3g, 6-31g, def2-svp)") from None
     if stdout is not None:
         mol.stdout = stdout
     return mol

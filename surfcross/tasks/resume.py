@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 from typing import Any, Mapping
 
 from ..engine.base import MethodSpec
-from ..errors import CheckpointError
+from ..errors import CheckpointError, InputError
 from ..geometry import Geometry
 from ..io.run import RunDirectory
+from ..optimize.records import Status
 from .common import RunOptions, TaskResult
 
 __all__ = ["resume", "method_from_dict"]
@@ -20,12 +22,17 @@ def method_from_dict(data: Mapping[str, Any]) -> MethodSpec:
     return MethodSpec(**clean)
 
 
-def resume(path: str | Path, *, progress: bool = True) -> TaskResult:
+def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = None) -> TaskResult:
     """Reopen the run directory ``path`` and continue its task where the checkpoint left it.
 
     The continued run uses the saved Hessian, trust radius, objective state (tracked roots,
     penalty weight, branching-plane vector) and step numbering, so its answer equals that of an
     uninterrupted run.
+
+    A run that stopped at its step limit (result.json with status 'step limit reached') is
+    continued too, with a new budget of ``more_steps`` steps (default: the original limit);
+    ``more_steps`` also extends the budget of an interrupted run. Converged or failed runs
+    are not continued.
     """
     run_dir = RunDirectory.reopen(path)
     data = run_dir.previous
@@ -34,10 +41,14 @@ def resume(path: str | Path, *, progress: bool = True) -> TaskResult:
     if data.geometry is None or not data.resume_state:
         raise CheckpointError(f"{path}: the checkpoint holds no completed step to resume from; "
                               "start the task again")
-    if (Path(path) / "result.json").exists():
-        raise CheckpointError(f"{path}: this run already finished (result.json exists)")
+    if more_steps is not None and more_steps < 1:
+        raise InputError(f"the number of further steps must be >= 1, got {more_steps}")
+    _check_unfinished(Path(path))
     method = method_from_dict(task["method"])
     options = RunOptions.from_dict(task.get("options", {}))
+    if more_steps is not None or (Path(path) / "result.json").exists():
+        budget = more_steps if more_steps is not None else options.max_iterations
+        options = options.with_updates(max_iterations=data.iteration + budget)
     start: Geometry = data.geometry
     if kind == "relax":
         from .relax import relax
@@ -52,3 +63,20 @@ def resume(path: str | Path, *, progress: bool = True) -> TaskResult:
                              resume_state=dict(data.resume_state),
                              gap_tolerance_eh=task.get("gap_tolerance_eh"))
     raise CheckpointError(f"{path}: cannot resume a task of kind {kind!r}")
+
+
+def _check_unfinished(path: Path) -> None:
+    """A run with result.json may only be continued when it stopped at its step limit."""
+    result = path / "result.json"
+    if not result.exists():
+        return
+    try:
+        status = json.loads(result.read_text(encoding="utf-8")).get("status")
+    except (OSError, ValueError, AttributeError):
+        status = None
+    if status == Status.STEP_LIMIT.value:
+        return
+    if status == Status.CONVERGED.value:
+        raise CheckpointError(f"{path}: this run already converged; nothing to continue")
+    raise CheckpointError(f"{path}: this run ended with status {status!r}, not at its step "
+                          "limit; start a new run from its final.xyz (with other settings)")
