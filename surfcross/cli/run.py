@@ -11,6 +11,9 @@ from ..units import HARTREE_IN_EV
 
 __all__ = ["add_parser", "run", "job_summary_lines"]
 
+#: warnings shown per task in the summary (all of them are in the task's result.json)
+MAX_WARNINGS = 3
+
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
     parser = subparsers.add_parser(
@@ -35,7 +38,7 @@ def _task_line(o: TaskOutcome) -> str:
     if o.result is None:
         return head + (f" -- {o.message}" if o.message else "") + where
     r = o.result
-    if r.task != "states":
+    if r.task not in ("states", "path"):
         head += f" after {r.iterations} steps"
     parts = [f"E({k}) = {v:.8f} Eh" for k, v in r.data.get("target_energies_eh", {}).items()]
     if r.data.get("gap_ev") is not None:
@@ -52,12 +55,14 @@ def job_summary_lines(result: JobResult) -> list[str]:
     lines = [f"job {result.title or ''}: {done} of {len(result.outcomes)} task(s) "
              f"converged/finished in {result.elapsed_s:.0f} s; folder {result.run_dir}"]
     lines += [_task_line(o) for o in result.outcomes]
-    warnings = []
+    seen: list[str] = []
     for o in result.outcomes:
-        for w in (o.result.warnings if o.result is not None else ()):
-            if w not in warnings:
-                warnings.append(w)
-    lines += [f"  warning: {w}" for w in warnings]
+        new = [w for w in (o.result.warnings if o.result is not None else ()) if w not in seen]
+        seen += new
+        lines += [f"  warning ({o.name}): {w}" for w in new[:MAX_WARNINGS]]
+        if len(new) > MAX_WARNINGS:
+            lines.append(f"  ... {len(new) - MAX_WARNINGS} more warning(s) of {o.name} in "
+                         f"{o.run_dir.name}/result.json")
     lines.append(f"  note: {LIMITS_NOTE}")
     return lines
 

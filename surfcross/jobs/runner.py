@@ -204,9 +204,32 @@ def _emission(step: Step) -> TaskResult:
                     progress=step.progress)
 
 
+def _path(step: Step) -> TaskResult:
+    from ..workflows.path import pathway
+
+    show = list(step.options.get("show", ()))
+    points = [geometry_reference(ref, step.geometries, step.job.molecule)
+              for ref in step.options["geometries"]]
+    kwargs = {k: step.options[k] for k in ("images", "interpolation") if k in step.options}
+    return pathway(points, method_for(step.job, show), show=show, run_dir=step.run_dir, **kwargs)
+
+
+def _scan(step: Step) -> TaskResult:
+    from ..workflows.scan import scan
+
+    state = step.options.get("state")
+    relax_points = step.options.get("relax", state is not None)
+    return scan(step.geometry, method_for(step.job, [state] if state else []),
+                atoms=[a - 1 for a in step.options["atoms"]], values=list(step.options["values"]),
+                state=state, relax_points=relax_points,
+                options=run_options_from_task(step.options), run_dir=step.run_dir,
+                progress=step.progress)
+
+
 #: task kind -> function running it
 TASK_RUNNERS: dict[str, Callable[[Step], TaskResult]] = {
     "states": _states, "relax": _relax, "cross": _cross, "emission": _emission,
+    "path": _path, "scan": _scan,
 }
 #: task kind -> the workflow module it needs (kinds whose module is missing cannot run)
 WORKFLOW_MODULES = {"emission": "emission", "path": "path", "scan": "scan"}
