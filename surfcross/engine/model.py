@@ -208,19 +208,13 @@ class ModelEngine:
         s = self.surface
         return s.ground_offset + 0.5 * s.ground_curvature * float(q @ q), s.ground_curvature * q
 
-    def _pair_labels(self, energies: np.ndarray) -> tuple[StateLabel, StateLabel]:
-        """Adiabatic labels of the two model states at this geometry."""
-        if self.same_manifold:
-            return self.labels
-        return self.labels  # different manifolds: each keeps its own label
-
     # ------------------------------------------------------------------ protocol
     def states(self, geometry: Geometry) -> Evaluation:
         self.calls["states"] += 1
         q = self.displacement(geometry)
         e, v, _ = self._adiabatic(q)
         e0, _ = self._ground(q)
-        l1, l2 = self._pair_labels(e)
+        l1, l2 = self.labels
         infos = [StateInfo(label=parse_state("S0"), energy_eh=e0),
                  StateInfo(label=l1, energy_eh=float(e[0])),
                  StateInfo(label=l2, energy_eh=float(e[1]))]

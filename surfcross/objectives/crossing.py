@@ -312,6 +312,21 @@ class CrossingObjectiveBase(abc.ABC):
     def _compose(self, pair: PairEvaluation):
         """(ObjectiveValue, payload) for this pair: each search defines its working gradient."""
 
+    def composed_value(self, pair: PairEvaluation, working: np.ndarray, projected: np.ndarray,
+                       directions: list, curvatures: list, mu: float, **info: Any):
+        """ObjectiveValue of a composed search: working gradient, step model, force test on the
+        projected mean gradient, gap criterion, merit Ebar + mu dE."""
+        from .base import ObjectiveValue, SubspaceModel
+
+        model = SubspaceModel(directions=np.array(directions), curvatures=np.array(curvatures))
+        return ObjectiveValue(
+            value=pair.mean_energy, gradient=pair.shape(working), exact_gradient=False,
+            merit=pair.mean_energy + mu * pair.gap, energies_eh=pair.energies(),
+            gap_eh=pair.gap, convergence_gradient=pair.shape(projected), subspace=model,
+            extra_criteria=(gap_criterion(pair.gap, self.settings.gap_tol_eh),),
+            evaluation=pair.evaluation, tracking=pair.tracking,
+            info=self._info(pair, merit_gap_weight=mu, **info))
+
     def _info(self, pair: PairEvaluation, **extra: Any) -> dict[str, Any]:
         info = {"search": self.search, "roots": [str(pair.lower), str(pair.upper)],
                 "gap_eh": pair.gap, "mean_energy_eh": pair.mean_energy,

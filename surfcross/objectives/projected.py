@@ -36,8 +36,7 @@ import numpy as np
 from ..engine.base import Engine
 from ..errors import InputError
 from ..states import StateLabel
-from .base import ObjectiveValue, SubspaceModel
-from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation, gap_criterion,
+from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation,
                        check_merit_weight, merit_weight, remove_external, unit)
 
 __all__ = ["ProjectedSettings", "ProjectedObjective", "update_plane_vector", "initial_plane_vector"]
@@ -168,15 +167,9 @@ class ProjectedObjective(CrossingObjectiveBase):
         gbar = pair.gbar
         projected = gbar - (gbar @ xhat) * xhat - (gbar @ yhat) * yhat
         working = 2.0 * pair.gap * xhat + projected
-        model = SubspaceModel(directions=np.array([xhat, yhat]),
-                              curvatures=np.array([2.0 * n1, self.settings.plane_curvature]))
-        value = ObjectiveValue(
-            value=pair.mean_energy, gradient=pair.shape(working), exact_gradient=False,
-            merit=pair.mean_energy + self.mu * pair.gap, energies_eh=pair.energies(),
-            gap_eh=pair.gap, convergence_gradient=pair.shape(projected), subspace=model,
-            extra_criteria=(gap_criterion(pair.gap, self.settings.gap_tol_eh),),
-            evaluation=pair.evaluation, tracking=pair.tracking,
-            info=self._info(pair, plane=source, merit_gap_weight=self.mu))
+        value = self.composed_value(pair, working, projected, [xhat, yhat],
+                                    [2.0 * n1, self.settings.plane_curvature], self.mu,
+                                    plane=source)
         return value, (xhat, yhat)
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:

@@ -28,8 +28,7 @@ import numpy as np
 from ..engine.base import Engine
 from ..errors import InputError
 from ..states import StateLabel
-from .base import ObjectiveValue, SubspaceModel
-from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation, gap_criterion,
+from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation,
                        check_merit_weight, merit_weight, unit)
 
 __all__ = ["SpinSettings", "SpinCrossingObjective"]
@@ -88,14 +87,7 @@ class SpinCrossingObjective(CrossingObjectiveBase):
         gbar = pair.gbar
         projected = gbar - (gbar @ xhat) * xhat
         working = pair.gap * xhat + projected
-        model = SubspaceModel(directions=xhat[None, :], curvatures=np.array([n1]))
-        value = ObjectiveValue(
-            value=pair.mean_energy, gradient=pair.shape(working), exact_gradient=False,
-            merit=pair.mean_energy + self.mu * pair.gap, energies_eh=pair.energies(),
-            gap_eh=pair.gap, convergence_gradient=pair.shape(projected), subspace=model,
-            extra_criteria=(gap_criterion(pair.gap, self.settings.gap_tol_eh),),
-            evaluation=pair.evaluation, tracking=pair.tracking,
-            info=self._info(pair, merit_gap_weight=self.mu))
+        value = self.composed_value(pair, working, projected, [xhat], [n1], self.mu)
         return value, xhat
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
