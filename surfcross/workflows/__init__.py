@@ -1,0 +1,18 @@
+"""Workflows: short compositions of the tasks layer that answer photophysical questions.
+
+* :func:`emission` -- absorption, excited-state minimum, emission, adiabatic energy, Stokes
+  shift and (optionally) the zero-point corrected 0-0 energy;
+* :func:`pathway` -- all states along an interpolated path through given geometries, with
+  adiabatic and overlap-connected (character-keeping) curves;
+* :func:`scan` -- relaxed, seam or rigid scans of one bond, angle or dihedral.
+
+Each takes (geometry or geometries, method, options..., run_dir) and returns a
+:class:`~surfcross.tasks.TaskResult`, so a job runner can call it like the other tasks
+(:mod:`surfcross.workflows.jobs` maps job-file task keys onto these arguments).
+"""
+
+from .emission import emission
+from .path import pathway
+from .scan import scan, scan_values
+
+__all__ = ["emission", "pathway", "scan", "scan_values"]
