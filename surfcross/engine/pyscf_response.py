@@ -44,7 +44,7 @@ from ..geometry import Geometry
 from ..states import StateLabel, parse_state, parse_states
 from .base import Evaluation, MethodSpec, StateInfo
 from .pyscf_records import (manifold_wavefunction, reference_spin_square, response_states)
-from .pyscf_scf import build_molecule, check_functional, run_reference, warm_density
+from .pyscf_scf import build_molecule, check_functional, run_reference, stabilize, warm_density
 from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, make_response, project_guess,
                             solve_response)
 from .wavefunction import ResponseWavefunction
@@ -162,8 +162,13 @@ class PySCFResponseEngine:
         if result.strategy != "diis":
             logger.info("SCF converged with the %s fallback", result.strategy)
         counts["scf"] += result.cycles
-        times["scf"] += time.perf_counter() - start
         mf = result.mf
+        if prev is None and unrestricted:
+            # cold start of an unrestricted reference: make sure it is not an excited SCF
+            # solution, which warm starts would otherwise carry through the whole run
+            mf, extra = stabilize(mf, self.spec, unrestricted)
+            counts["scf"] += extra
+        times["scf"] += time.perf_counter() - start
         self._previous[slot] = {"mo_coeff": np.array(mf.mo_coeff), "mo_occ": np.array(mf.mo_occ)}
         return mf
 

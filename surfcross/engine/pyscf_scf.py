@@ -159,6 +159,31 @@ def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
         "try an unrestricted reference or a smaller/larger basis")
 
 
+def stabilize(mf: Any, spec: MethodSpec, unrestricted: bool, max_tries: int = 3) -> tuple[Any, int]:
+    """Follow internal instabilities of a converged reference down to a stable solution.
+
+    A cold start of an unrestricted (e.g. high-spin triplet) SCF can land on an excited SCF
+    solution; warm starts would then carry it along the whole run. PySCF's internal
+    stability analysis gives rotated orbitals when a lower solution exists; we reconverge from
+    them (at most ``max_tries`` times). Returns the stable mean-field object and the extra
+    SCF cycles spent.
+    """
+    cycles = 0
+    for _ in range(max_tries):
+        mo_new = mf.stability(external=False)[0] if unrestricted else mf.stability()[0]
+        if np.allclose(np.asarray(mo_new), np.asarray(mf.mo_coeff), atol=1e-6):
+            return mf, cycles
+        trial = _new_scf(mf.mol, spec, unrestricted)
+        ok, n = _counted_kernel(trial, mf.make_rdm1(mo_new, mf.mo_occ))
+        cycles += n
+        if not ok or trial.e_tot > mf.e_tot - 1e-9:
+            return mf, cycles
+        logger.info("SCF reference was unstable; moved to a lower solution (%.8f -> %.8f Eh)",
+                    mf.e_tot, trial.e_tot)
+        mf = trial
+    return mf, cycles
+
+
 def warm_density(mol: Any, mo_coeff: np.ndarray, mo_occ: np.ndarray) -> np.ndarray:
     """Density guess at ``mol`` from the previous geometry's occupied orbitals.
 

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from typing import Any, Iterable
+from dataclasses import replace
+from typing import Any, Callable, Iterable
 
 from ..coords.cartesian import CartesianCoordinates
 from ..coords.constraints import Constraint
@@ -62,16 +63,23 @@ def build_coordinates(geometry: Geometry, options: RunOptions, *, composed: bool
 
 
 def build_optimizer(objective: Any, coords: Any, options: RunOptions, *,
-                    trust_radius: float | None = None, observers: Iterable[Any] = ()) -> Optimizer:
-    """One optimizer for every task: settings and convergence thresholds from ``options``."""
-    settings: dict[str, Any] = {"max_iterations": options.max_iterations,
-                                "hessian_update": options.hessian_update}
-    radius = options.trust_radius if options.trust_radius is not None else trust_radius
-    if radius is not None:
-        settings["trust_radius"] = radius
-        settings["trust_max"] = max(radius, OptimizerSettings().trust_max)
+                    adjust: Callable[[OptimizerSettings], OptimizerSettings] | None = None,
+                    observers: Iterable[Any] = ()) -> Optimizer:
+    """One optimizer for every task: settings and convergence thresholds from ``options``.
+
+    ``adjust`` lets a task change the defaults (crossing searches start with a smaller trust
+    radius); a trust radius the user gave always wins.
+    """
+    settings = OptimizerSettings(max_iterations=options.max_iterations,
+                                 hessian_update=options.hessian_update)
+    if adjust is not None:
+        settings = adjust(settings)
+    if options.trust_radius is not None:
+        radius = options.trust_radius
+        settings = replace(settings, trust_radius=radius, trust_min=min(settings.trust_min, radius),
+                           trust_max=max(radius, settings.trust_max))
     convergence = ConvergenceSettings.preset(options.convergence)
     if options.convergence_overrides:
         convergence = convergence.with_overrides(**options.convergence_overrides)
-    return Optimizer(objective, coords, settings=OptimizerSettings(**settings),
-                     convergence=convergence, observers=observers)
+    return Optimizer(objective, coords, settings=settings, convergence=convergence,
+                     observers=observers)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+from dataclasses import replace
 from typing import Any, Callable, Iterable, Sequence
 
 import numpy as np
@@ -12,8 +13,9 @@ from ..analysis.probe import ProbeSettings, plane_from_value, probe_crossing
 from ..engine.base import MethodSpec
 from ..errors import InputError
 from ..geometry import Geometry
+from ..optimize import Status
 from ..objectives.searches import (choose_search, default_settings, make_crossing_objective,
-                                   with_gap_tolerance)
+                                   optimizer_settings_for, with_gap_tolerance)
 from ..states import StateLabel, parse_states
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
 from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
@@ -22,10 +24,6 @@ from .run import finish_task, run_optimization, task_spec
 __all__ = ["find_crossing", "characterize"]
 
 log = logging.getLogger(__name__)
-
-#: starting trust radius of crossing searches (bohr), smaller than for minima
-CROSSING_TRUST_RADIUS = 0.1
-
 
 def _gap_preset(options: RunOptions) -> str:
     return "tight" if options.convergence == "tight" else "default"
@@ -49,7 +47,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     options
         Convergence preset ('tight' also tightens the gap tolerance from 1e-3 to 1e-4 Eh),
         tracking, step limit; ``characterize`` runs the in-plane probe and the branching
-        analysis at a converged point (about 7 extra evaluations).
+        analysis at a converged point (about 15 extra energy evaluations).
     gap_tolerance_eh
         Largest gap accepted as a crossing (Eh); default 1e-3 (1e-4 with 'tight').
     """
@@ -70,7 +68,8 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
         raise InputError(f"the {name} search supports frozen atoms only; use the penalty search "
                          "for bond/angle/dihedral constraints")
     coords = build_coordinates(geometry, options, composed=composed)
-    optimizer = build_optimizer(objective, coords, options, trust_radius=CROSSING_TRUST_RADIUS)
+    optimizer = build_optimizer(objective, coords, options,
+                                adjust=lambda base: optimizer_settings_for(name, base))
     spec_dict = task_spec("cross", geometry, labels, spec, options, search=name,
                           gap_tolerance_eh=settings.gap_tol_eh)
     result = run_optimization(optimizer, geometry, run_dir, spec_dict, observers=observers,
@@ -78,6 +77,11 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     warnings = method_warnings(spec, labels) + list(getattr(objective, "warnings", ()))
     branching = None
     data: dict[str, Any] = {}
+    if getattr(objective, "failed", False) and result.converged:
+        # the penalty search gave up raising its weight with the gap still open
+        result = replace(result, status=Status.FAILED,
+                         message="the gap stayed above the tolerance at the largest penalty "
+                                 "weight: probably an avoided crossing")
     if result.converged and options.characterize:
         branching, probe = characterize(engine, result.value, same_spin=labels[0].manifold == labels[1].manifold)
         if probe is not None:
