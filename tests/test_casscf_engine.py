@@ -161,3 +161,21 @@ def test_property_warnings_flag_spin_contamination_and_inert_orbitals():
     assert any("S1 has <S^2> = 0.400" in n for n in notes)
     assert any("1.999" in n and "0.001" in n for n in notes)
     assert property_warnings({"spin_square": [0.0], "natural_occupations": [1.5, 0.5]}) == []
+
+
+def test_command_line_options_reach_the_engine():
+    import argparse
+
+    from surfcross.cli.options import add_method_options, method_from_args
+
+    parser = argparse.ArgumentParser()
+    add_method_options(parser)
+    args = parser.parse_args(["--method", "casscf", "--active-space", "2,2",
+                              "--active-orbitals", "7,9", "--roots", "1"])
+    spec = method_from_args(args)
+    assert spec.active_space == (2, 2) and spec.active_orbitals == (7, 9)
+    with pytest.raises(InputError, match="exactly 2"):
+        CASSCFEngine(spec.with_updates(active_orbitals=(7, 8, 9)))
+    with pytest.raises(InputError, match="start at 1"):
+        method_from_args(parser.parse_args(["--method", "casscf", "--active-space", "2,2",
+                                            "--active-orbitals", "0,1"]))

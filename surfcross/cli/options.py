@@ -29,6 +29,9 @@ def add_method_options(parser: argparse.ArgumentParser) -> None:
                    help="T1.. from linear response, or T1 as a separate high-spin SCF")
     g.add_argument("--active-space", default=None, metavar="NE,NO",
                    help="CASSCF active space: electrons,orbitals (method casscf)")
+    g.add_argument("--active-orbitals", default=None, metavar="I,J,..",
+                   help="CASSCF: 1-based numbers of the starting RHF orbitals to make active "
+                        "(default: those around the HOMO/LUMO gap)")
     g.add_argument("--threads", type=int, default=1, help="threads for PySCF (default: 1)")
     g.add_argument("--memory", type=int, default=4000, help="PySCF memory in MB (default: 4000)")
 
@@ -43,6 +46,19 @@ def _active_space(text: str | None) -> tuple[int, int] | None:
     return ne, no
 
 
+def _active_orbitals(text: str | None) -> tuple[int, ...] | None:
+    if text is None:
+        return None
+    try:
+        picked = tuple(int(x) for x in text.split(",") if x.strip())
+    except ValueError:
+        raise InputError(f"--active-orbitals expects 1-based orbital numbers such as 8,9; "
+                         f"got {text!r}") from None
+    if not picked or min(picked) < 1:
+        raise InputError(f"--active-orbitals numbers start at 1; got {text!r}")
+    return picked
+
+
 def method_from_args(args: argparse.Namespace, roots: int = 3, triplet_roots: int = 0) -> MethodSpec:
     """Build the MethodSpec; ``roots``/``triplet_roots`` are what the task needs at least."""
     return MethodSpec(
@@ -54,6 +70,7 @@ def method_from_args(args: argparse.Namespace, roots: int = 3, triplet_roots: in
         unrestricted=args.unrestricted,
         triplets=args.triplets,
         active_space=_active_space(args.active_space),
+        active_orbitals=_active_orbitals(getattr(args, "active_orbitals", None)),
         threads=args.threads,
         max_memory_mb=args.memory,
     )

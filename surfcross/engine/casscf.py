@@ -90,6 +90,9 @@ class CASSCFEngine:
         if nelecas % 2:
             raise InputError(f"the CASSCF engine computes singlets: {nelecas} active electrons "
                              "is odd; use an even number")
+        if spec.active_orbitals is not None and len(spec.active_orbitals) != ncas:
+            raise InputError(f"{len(spec.active_orbitals)} active orbitals chosen for an active "
+                             f"space of {ncas} orbitals; give exactly {ncas} orbital numbers")
         self._setup = CasscfSetup(ncas=ncas, nelecas=nelecas, weights=_weights(spec))
         self._log = open(log_path, "a", encoding="utf-8") if log_path else None
         self._previous: tuple[object, ActiveSpaceWavefunction] | None = None
