@@ -78,10 +78,13 @@ def molecule_crossings() -> list[CrossingCase]:
         CrossingCase(name="ethylene S1/S2 CIS, 45 deg twist", quick=False,
                      make_engine=_factory(cis, ("S1", "S2")), states=("S1", "S2"),
                      start=displaced(twisted_ethylene(45.0), fixed_shift(6, 0.02, 3))),
-        CrossingCase(name="formaldehyde S1/T1 TDA (response), stretched", quick=False,
+        CrossingCase(name="ethylene S1/T2 TDA (response), 45 deg twist", quick=False,
+                     make_engine=_factory(tda, ("S1", "T2")), states=("S1", "T2"),
+                     start=displaced(twisted_ethylene(45.0), fixed_shift(6, 0.02, 3))),
+        CrossingCase(name="formaldehyde S1/T1 TDA (response), stretched",
                      make_engine=_factory(tda, ("S1", "T1")), states=("S1", "T1"),
                      start=stretched_formaldehyde(1.35, 0.1)),
-        CrossingCase(name="formaldehyde S0/S1 CIS, stretched", quick=False,
+        CrossingCase(name="formaldehyde S0/S1 CIS, stretched",
                      make_engine=_factory(cis, ("S0", "S1")), states=("S0", "S1"),
                      start=stretched_formaldehyde(1.45, 0.15), note=S0_S1_CAVEAT),
     ]
@@ -97,7 +100,7 @@ def crossing_suite(mode: str) -> list[CrossingCase]:
 def minimum_suite(mode: str) -> list[MinimumCase]:
     cis = MethodSpec(method="cis", basis="sto-3g")
     high_spin = MethodSpec(method="cis", basis="sto-3g", triplets="high-spin")
-    dft = MethodSpec(method="tddft", xc="pbe0", basis="sto-3g")
+    dft = MethodSpec(method="tda", xc="pbe0", basis="sto-3g")
     pyramidal = displaced(molecule("formaldehyde"),
                           np.array([[0.0, 0.0, 0.0], [0.0, 0.0, 0.0],
                                     [0.15, 0.0, 0.0], [0.15, 0.0, 0.0]]))
@@ -106,10 +109,10 @@ def minimum_suite(mode: str) -> list[MinimumCase]:
         ("formaldehyde S0 (HF)", cis, "S0", molecule("formaldehyde"), True),
         ("formaldehyde S1 CIS, pyramidal start", cis, "S1", pyramidal, True),
         ("methylene T1 (UHF high-spin)", high_spin, "T1",
-         triatomic(("C", "H", "H"), 1.09, 120.0), False),
+         triatomic(("C", "H", "H"), 1.09, 120.0), True),
         ("ethylene S0 (HF)", cis, "S0", displaced(molecule("ethylene"), fixed_shift(6, 0.05, 7)),
          False),
-        ("formaldehyde S1 TDDFT PBE0, pyramidal start", dft, "S1", pyramidal, False),
+        ("formaldehyde S1 TDA-PBE0, pyramidal start", dft, "S1", pyramidal, False),
     ]
     cases = [MinimumCase(name=n, make_engine=_factory(m, (s,)), state=s, start=g, method=m,
                          quick=q) for n, m, s, g, q in rows]

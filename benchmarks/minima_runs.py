@@ -16,6 +16,7 @@ states and the gradient were computed).
 
 from __future__ import annotations
 
+import logging
 import time
 from dataclasses import dataclass
 from typing import Any, Callable
@@ -88,8 +89,10 @@ def _pyberny(case: MinimumCase) -> dict[str, Any]:
     from berny import Berny, geomlib
 
     engine, energy_gradient = _tracked(case)
+    quiet_log = logging.getLogger("surfcross.benchmarks.pyberny")  # its notes off the screen
+    quiet_log.setLevel(logging.ERROR)
     optimizer = Berny(geomlib.Geometry(list(case.start.symbols), case.start.coords_angstrom),
-                      maxsteps=MAX_EVALUATIONS)
+                      maxsteps=MAX_EVALUATIONS, logger=quiet_log)
     energy = None
     for geom in optimizer:
         coords = np.asarray(geom.coords, float) / BOHR_IN_ANGSTROM
