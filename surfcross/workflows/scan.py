@@ -407,6 +407,15 @@ def _finish(geometry: Geometry, spec: MethodSpec, mode: str, labels: list[StateL
     status = "converged" if converged else "not converged"
     if mode == "rigid":
         status = "finished"
+    if mode == "relaxed" and labels[0].is_reference:
+        odd = [f"{r['value']:g} ({r['roots'][0]})" for r in rows
+               if not parse_state(r["roots"][0]).is_reference]
+        if odd:
+            notes = notes + [
+                f"at {', '.join(odd)} the ground state's character was followed onto an "
+                "excited root: the reference SCF solution changed (an instability, e.g. at a "
+                "pi/pi* degeneracy); the energies there are unreliable. Try --cold-start or "
+                "--no-tracking, and check with a multireference method"]
     if mode == "seam":
         notes = notes + [f"every seam point is a penalty-search crossing with the coordinate "
                          f"held; largest residual gap {max(profile['gap_ev']):.2e} eV"]
