@@ -104,7 +104,7 @@ def crossing_lines(rows: list[dict]) -> list[str]:
         cells.append("; ".join(f"{n} {_fmt(runs[n].get('gap_eh'), '.1e')}/"
                                f"{_fmt(runs[n].get('mean_energy_eh'), '.5f')}" for n in names))
         body.append(cells)
-    return ["Crossing searches (engine evaluations to converge)"] + _table(header, body)
+    return ["Crossing searches (engine evaluations to converge):", ""] + _table(header, body)
 
 
 def minima_lines(rows: list[dict]) -> list[str]:
@@ -121,7 +121,7 @@ def minima_lines(rows: list[dict]) -> list[str]:
                      if ok else "-")
         cells.append("; ".join(f"{n} {_fmt(runs[n].get('energy_eh'), '.6f')}" for n in names))
         body.append(cells)
-    return ["Minima (engine evaluations to converge)"] + _table(header, body)
+    return ["Minima (engine evaluations to converge):", ""] + _table(header, body)
 
 
 def warm_lines(rows: list[dict]) -> list[str]:
@@ -139,7 +139,7 @@ def warm_lines(rows: list[dict]) -> list[str]:
                      f"(x{p['speedup']:.2f})"])
     header = ["path", "points", "SCF cycles/step cold / warm",
               "response iterations/step cold / warm", "wall s/step cold / warm"]
-    return ["Warm starts (same path replayed)"] + _table(header, body) if rows else []
+    return ["Warm starts (same path replayed):", ""] + _table(header, body) if rows else []
 
 
 def tracking_lines(rows: list[dict]) -> list[str]:
@@ -152,14 +152,14 @@ def tracking_lines(rows: list[dict]) -> list[str]:
         body.append([p["case"], f"{t['wrong_steps']} of {t['steps']}",
                      f"{a['wrong_steps']} of {a['steps']}"])
     header = ["path", "wrong-state steps, overlap tracking", "wrong-state steps, adiabatic index"]
-    return ["State tracking (wrong = other irrep than at the start)"] + _table(header, body) \
+    return ["State tracking (wrong = other irrep than at the start):", ""] + _table(header, body) \
         if rows else []
 
 
 def target_lines(targets: dict[str, dict]) -> list[str]:
     body = [[t["description"], t["target"], _fmt(t["measured"], ".3g"), t["verdict"], t["note"]]
             for t in targets.values()]
-    return ["Targets"] + _table(["measure", "target", "measured", "verdict", "note"], body)
+    return ["Targets:", ""] + _table(["measure", "target", "measured", "verdict", "note"], body)
 
 
 def render(results: dict[str, Any]) -> str:
