@@ -165,8 +165,11 @@ _OPT = {
 
 
 def _check_scan(options: dict[str, Any], where: str) -> None:
-    if options.get("relax") and "state" not in options:
-        raise fail(where, "a relaxed scan ('relax = true') needs 'state', the state minimized")
+    if options.get("relax") and "state" not in options and "along_seam" not in options:
+        raise fail(where, "a relaxed scan ('relax = true') needs 'state', the state minimized "
+                          "(or 'along_seam', two states)")
+    if "along_seam" in options and options.get("relax") is False:
+        raise fail(where, "a scan along a seam minimizes at every point: drop 'relax = false'")
 
 
 for _kind in (
@@ -182,7 +185,12 @@ for _kind in (
                                             doc="largest gap accepted at the crossing, Eh"),
                    **_OPT}),
     TaskKind(name="emission", doc="absorption, relaxed excited state, emission, Stokes shift",
-             keys={"state": KeyRule(type="state", doc="emitting state (default S1)"), **_OPT}),
+             keys={"state": KeyRule(type="state", doc="emitting state (default S1)"),
+                   "relax_ground": KeyRule(type="bool", doc="relax the ground state first even "
+                                           "when the start passes the force threshold"),
+                   "zero_point": KeyRule(type="bool", doc="frequencies at both minima and the "
+                                         "zero-point corrected 0-0 energy"),
+                   **_OPT}),
     TaskKind(name="path", doc="interpolated pathway through geometries, with all state energies",
              gives_geometry=False,
              keys={"geometries": KeyRule(type="geometries", required=True, length=(2, 10**9),
@@ -190,7 +198,8 @@ for _kind in (
                    "images": KeyRule(type="int", low=1, doc="points between consecutive geometries"),
                    "interpolation": KeyRule(type="choice", choices=("cartesian", "internal"),
                                             doc="how geometries are interpolated"),
-                   "show": KeyRule(type="states", length=(1, 10**9), doc="states to draw (default all)")}),
+                   "show": KeyRule(type="states", length=(1, 10**9), doc="states to draw (default all)"),
+                   "mass_weighted": KeyRule(type="bool", doc="mass-weighted path length and alignment")}),
     TaskKind(name="scan", doc="energies along one bond, angle or dihedral",
              check=_check_scan,
              keys={"atoms": KeyRule(type="atoms", required=True, length=(2, 4),
@@ -199,6 +208,10 @@ for _kind in (
                                      doc="coordinate values: angstrom for bonds, degrees for angles"),
                    "relax": KeyRule(type="bool", doc="minimize the other coordinates at each point"),
                    "state": KeyRule(type="state", doc="state minimized in a relaxed scan"),
+                   "along_seam": KeyRule(type="pair", length=(2, 2),
+                                         doc="two states: crossing point (penalty search) at each value"),
+                   "companion": KeyRule(type="atoms", length=(2, 4),
+                                        doc="a second coordinate of the same kind moved by the same amount and held"),
                    **_OPT}),
 ):
     register_task_kind(_kind)

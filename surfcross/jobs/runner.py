@@ -139,6 +139,8 @@ def task_labels(kind: str, options: Mapping[str, Any]) -> list[str]:
         return list(options["states"])
     if kind == "emission":
         return [options.get("state", "S1")]
+    if kind == "scan" and "along_seam" in options:
+        return list(options["along_seam"])
     if kind in ("relax", "scan"):
         return [options["state"]] if "state" in options else []
     if kind == "path":
@@ -201,7 +203,9 @@ def _emission(step: Step) -> TaskResult:
     label = step.options.get("state", "S1")
     return emission(step.geometry, method_for(step.job, [label]), state=label,
                     options=run_options_from_task(step.options), run_dir=step.run_dir,
-                    progress=step.progress)
+                    progress=step.progress,
+                    relax_ground=step.options.get("relax_ground", False),
+                    zero_point=step.options.get("zero_point", False))
 
 
 def _path(step: Step) -> TaskResult:
@@ -210,7 +214,8 @@ def _path(step: Step) -> TaskResult:
     show = list(step.options.get("show", ()))
     points = [geometry_reference(ref, step.geometries, step.job.molecule)
               for ref in step.options["geometries"]]
-    kwargs = {k: step.options[k] for k in ("images", "interpolation") if k in step.options}
+    kwargs = {k: step.options[k] for k in ("images", "interpolation", "mass_weighted")
+              if k in step.options}
     return pathway(points, method_for(step.job, show), show=show, run_dir=step.run_dir, **kwargs)
 
 
@@ -218,10 +223,13 @@ def _scan(step: Step) -> TaskResult:
     from ..workflows.scan import scan
 
     state = step.options.get("state")
-    relax_points = step.options.get("relax", state is not None)
-    return scan(step.geometry, method_for(step.job, [state] if state else []),
+    seam = step.options.get("along_seam")
+    relax_points = step.options.get("relax", state is not None or seam is not None)
+    companion = step.options.get("companion")
+    return scan(step.geometry, method_for(step.job, task_labels("scan", step.options)),
                 atoms=[a - 1 for a in step.options["atoms"]], values=list(step.options["values"]),
-                state=state, relax_points=relax_points,
+                state=state, relax_points=relax_points, along_seam=seam,
+                companions=[[a - 1 for a in companion]] if companion else [],
                 options=run_options_from_task(step.options), run_dir=step.run_dir,
                 progress=step.progress)
 
