@@ -34,6 +34,9 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
     ``more_steps`` also extends the budget of an interrupted run. Converged or failed runs
     are not continued.
     """
+    if more_steps is not None and more_steps < 1:
+        raise InputError(f"the number of further steps must be >= 1, got {more_steps}")
+    _check_unfinished(Path(path))
     run_dir = RunDirectory.reopen(path)
     data = run_dir.previous
     task = dict(run_dir.task or {})
@@ -41,9 +44,6 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
     if data.geometry is None or not data.resume_state:
         raise CheckpointError(f"{path}: the checkpoint holds no completed step to resume from; "
                               "start the task again")
-    if more_steps is not None and more_steps < 1:
-        raise InputError(f"the number of further steps must be >= 1, got {more_steps}")
-    _check_unfinished(Path(path))
     method = method_from_dict(task["method"])
     options = RunOptions.from_dict(task.get("options", {}))
     if more_steps is not None or (Path(path) / "result.json").exists():
