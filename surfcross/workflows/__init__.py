@@ -7,8 +7,9 @@
 * :func:`scan` -- relaxed, seam or rigid scans of one bond, angle or dihedral.
 
 Each takes (geometry or geometries, method, options..., run_dir) and returns a
-:class:`~surfcross.tasks.TaskResult`, so a job runner can call it like the other tasks
-(:mod:`surfcross.workflows.jobs` maps job-file task keys onto these arguments).
+:class:`~surfcross.tasks.TaskResult`, so the job runner (:mod:`surfcross.jobs.runner`) calls
+them like the other tasks. Each writes one run directory; emission and minimized scans put
+their stages in child folders (``RunDirectory.child``).
 """
 
 from .emission import emission

@@ -173,6 +173,23 @@ def _curves(evaluations: Sequence[Evaluation], roots: dict[str, list[str]],
     return adiabatic, connected
 
 
+def _profile(evaluations: Sequence[Evaluation], roots: dict[str, list[str]], x: np.ndarray, *,
+             mass_weighted: bool, given: list[int], used: list[str], images: int) -> dict[str, Any]:
+    """The 'profile' entry of result.json (x, curves, roots, energies per point)."""
+    ref = next(s for s in evaluations[0].states if s.label.is_reference)
+    adiabatic, connected = _curves(evaluations, roots, ref.energy_eh)
+    return {
+        "x": x.tolist(), "x_unit": "amu^1/2 angstrom" if mass_weighted else "angstrom",
+        "path_length": "mass-weighted" if mass_weighted else "plain",
+        "given_points": given, "interpolation": used, "images": images,
+        "reference": f"{ref.label} at the first point", "reference_eh": ref.energy_eh,
+        "adiabatic_ev": adiabatic, "connected_ev": connected, "connected_roots": roots,
+        "energies_eh": [ev.energies() for ev in evaluations],
+        "oscillator_strengths": [{str(s.label): s.oscillator_strength for s in ev.states}
+                                 for ev in evaluations],
+    }
+
+
 def _write_trajectory(run_dir: Any, evaluations: Sequence[Evaluation], x: np.ndarray) -> None:
     comments = [" ".join([f"step={i}", f"x={x[i]:.6f}"]
                          + [f"E_{k}={v:.10f}" for k, v in ev.energies().items()])
@@ -225,21 +242,10 @@ def pathway(geometries: Sequence[Geometry], method: MethodSpec, *, images: int =
     finally:
         if own:
             engine.close()
-    masses = first.masses_amu if mass_weighted else None
-    x = path_length(points, masses)
-    ref = next(s for s in evaluations[0].states if s.label.is_reference)
-    adiabatic, connected = _curves(evaluations, roots, ref.energy_eh)
+    x = path_length(points, first.masses_amu if mass_weighted else None)
+    profile = _profile(evaluations, roots, x, mass_weighted=mass_weighted, given=given,
+                       used=used, images=images)
     swaps = [name for name, rs in roots.items() if any(r != name for r in rs)]
-    profile = {
-        "x": x.tolist(), "x_unit": "amu^1/2 angstrom" if mass_weighted else "angstrom",
-        "path_length": "mass-weighted" if mass_weighted else "plain",
-        "given_points": given, "interpolation": used, "images": images,
-        "reference": f"{ref.label} at the first point", "reference_eh": ref.energy_eh,
-        "adiabatic_ev": adiabatic, "connected_ev": connected, "connected_roots": roots,
-        "energies_eh": [ev.energies() for ev in evaluations],
-        "oscillator_strengths": [{str(s.label): s.oscillator_strength for s in ev.states}
-                                 for ev in evaluations],
-    }
     warnings = merge_warnings(method_warnings(spec, labels), notes, link_notes,
                               *(ev.warnings for ev in evaluations))
     last = evaluations[-1]
