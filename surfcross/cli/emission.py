@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..tasks.common import LIMITS_NOTE
+
 from ..states import parse_state
 from ..tasks.common import prepare_method
 from ..workflows import emission
@@ -68,5 +70,6 @@ def run(args: argparse.Namespace) -> int:
     print_photophysics(result.data)
     for w in result.warnings:
         print(f"  warning: {w}")
+    print(f"  note: {LIMITS_NOTE}")
     print(f"  run directory: {result.run_dir}")
     return exit_code(result)

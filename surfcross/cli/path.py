@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..tasks.common import LIMITS_NOTE
+
 from ..io.run import RunDirectory
 from ..workflows import pathway
 from .options import add_method_options, geometry_from_args, method_from_args
@@ -60,5 +62,6 @@ def run(args: argparse.Namespace) -> int:
               + ", ".join(result.data["character_changes"]))
     for w in result.warnings:
         print(f"  warning: {w}")
+    print(f"  note: {LIMITS_NOTE}")
     print(f"  run directory: {result.run_dir}")
     return 0

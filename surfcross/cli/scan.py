@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..tasks.common import LIMITS_NOTE
+
 from ..errors import InputError
 from ..workflows import scan, scan_values
 from ..workflows.scan import SEAM_SEARCH
@@ -112,4 +114,5 @@ def _print(result) -> None:
               f"(eV relative to {profile['reference']})")
     for w in result.warnings:
         print(f"  warning: {w}")
+    print(f"  note: {LIMITS_NOTE}")
     print(f"  run directory: {result.run_dir}")
