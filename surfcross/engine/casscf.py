@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import logging
 import time
+from dataclasses import replace
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -179,7 +180,6 @@ class CASSCFEngine:
         out = evaluation.with_gradients(
             grads, coups, timings_s={"gradients": t1 - t0, "couplings": t2 - t1})
         if notes:
-            from dataclasses import replace
             out = replace(out, warnings=tuple(out.warnings) + tuple(notes))
         return out
 
