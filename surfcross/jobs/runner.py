@@ -327,7 +327,7 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
             continue
         outcome = _run_one(job, task, folder, geometries, progress)
         outcomes.append(outcome)
-        if outcome.result is not None and outcome.status != "skipped":
+        if outcome.result is not None and outcome.converged:  # others give no start
             geometries[task.name] = outcome.result.geometry
         _write_summary(job, folder, outcomes, started)
         if not outcome.converged and not keep_going:
@@ -352,7 +352,7 @@ def _run_one(job: Job, task: Any, folder: RunDirectory, geometries: dict[str, Ge
     blocker = _blocked(task, geometries)
     if blocker is not None:
         return TaskOutcome(name=task.name, kind=task.kind, status="skipped",
-                           message=f"needs the geometry of '{blocker}', which did not finish")
+                           message=f"starts from '{blocker}', which did not converge or finish")
     run_dir = folder.child(task.name)
     log.info("task %s (%s) in %s", task.name, task.kind, run_dir.path)
     step = Step(job, task.name, task.options, _start(job, task, geometries), run_dir, progress,
