@@ -40,7 +40,7 @@ from ..errors import EngineError, InputError
 from ..geometry import Geometry
 from ..states import SINGLET, StateLabel, parse_state
 from .base import Evaluation, MethodSpec, StateInfo
-from .casscf_checks import continuity_warnings, property_warnings
+from .casscf_checks import STATE_NOTE_MARK, continuity_warnings, property_warnings
 from .casscf_solver import CasscfSetup, solve_state_averaged, state_properties
 from .casscf_wavefunction import ActiveSpaceWavefunction, build_mole, casscf_overlap_matrix
 
@@ -245,7 +245,9 @@ class CASSCFEngine:
             notes.append(LIMITATIONS)
             self._limits_noted = True
         for note in notes:
-            logger.warning(note)
+            # states trading character is expected near crossings: informational only
+            level = logging.INFO if STATE_NOTE_MARK in note else logging.WARNING
+            logger.log(level, note)
         return tuple(notes)
 
     def _root(self, label: StateLabel | str) -> int:

@@ -15,7 +15,7 @@ import numpy as np
 
 from .casscf_wavefunction import ActiveSpaceWavefunction, ao_cross_overlap, casscf_overlap_matrix
 
-__all__ = ["property_warnings", "continuity_warnings"]
+__all__ = ["property_warnings", "continuity_warnings", "STATE_NOTE_MARK"]
 
 #: <S^2> deviation from 0 above which a state is reported as spin contaminated
 SPIN_TOLERANCE = 0.05
@@ -24,6 +24,9 @@ INERT_OCCUPATION = 0.02
 #: smallest singular value of the active-active orbital overlap below which the active
 #: space is reported as having changed character
 ACTIVE_SPACE_CONTINUITY = 0.9
+#: prefix-free marker: notes about states changing order/character are informational near
+#: crossings (states mix there by nature); the engine logs them at INFO level
+STATE_NOTE_MARK = "since the previous geometry (overlap"
 #: |overlap| of a state with its own previous self below which it is reported as changed
 STATE_CONTINUITY = 0.7
 
@@ -60,9 +63,9 @@ def continuity_warnings(prev: ActiveSpaceWavefunction, cur: ActiveSpaceWavefunct
     for k in range(min(overlap.shape)):
         best = int(np.argmax(overlap[k]))
         if best != k and overlap[k, best] > overlap[k, k]:
-            notes.append(f"the state that was S{k} at the previous geometry now resembles S{best} "
-                         f"(overlap {overlap[k, best]:.2f} vs {overlap[k, k]:.2f}): the adiabatic "
-                         "order of the averaged states changed")
+            notes.append(f"the adiabatic order of the averaged states changed: S{k} now "
+                         f"resembles S{best} since the previous geometry (overlap "
+                         f"{overlap[k, best]:.2f} vs {overlap[k, k]:.2f})")
         elif overlap[k, k] < STATE_CONTINUITY:
             notes.append(f"S{k} changed character since the previous geometry (overlap "
                          f"{overlap[k, k]:.2f} with its previous self)")
