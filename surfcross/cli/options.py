@@ -23,7 +23,8 @@ def add_method_options(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--charge", type=int, default=None, help="total charge (default: 0)")
     g.add_argument("--spin", type=int, default=None, help="2S, unpaired electrons (default: 0)")
     g.add_argument("--roots", type=int, default=None,
-                   help="excited states computed (default: enough for the states asked + 2)")
+                   help="excited states computed; raised automatically to the highest state "
+                        "asked + 2 (default: just that)")
     g.add_argument("--unrestricted", action="store_true", help="unrestricted reference")
     g.add_argument("--triplets", default="response", choices=["response", "high-spin"],
                    help="T1.. from linear response, or T1 as a separate high-spin SCF")
