@@ -61,7 +61,14 @@ def _active_orbitals(text: str | None) -> tuple[int, ...] | None:
 
 
 def method_from_args(args: argparse.Namespace, roots: int = 3, triplet_roots: int = 0) -> MethodSpec:
-    """Build the MethodSpec; ``roots``/``triplet_roots`` are what the task needs at least."""
+    """Build the MethodSpec; ``roots``/``triplet_roots`` are what the task needs at least.
+
+    For CASSCF ``--roots`` is the number of excited states in the state average, which changes
+    the surfaces themselves; without it we average only the states a task asks for (S0 and S1
+    for an S0/S1 search: SA-2), never more.
+    """
+    if args.roots is None and args.method == "casscf":
+        roots = 1
     return MethodSpec(
         method=args.method,
         xc=args.xc,

@@ -15,7 +15,7 @@ higher-level method would not show; results need checking with such methods.
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -282,6 +282,19 @@ class StateTracker:
         old = self._roots[target]
         match = match_row(o, _index(self._reference, old))
         new = evaluation.manifold(old.manifold)[match.column].label
+        if old.is_reference and new != old:
+            # The reference state is the SCF determinant itself: response roots are built on
+            # it and cannot take its place. A better overlap with an excited root means the
+            # reference changed character (e.g. an unstable RHF at a twisted double bond).
+            acc.flags.append(f"{target}: the reference determinant resembles root {new} more "
+                             "than itself here (the SCF solution changed character); the "
+                             "reference is kept, check the SCF (try --cold-start, an "
+                             "unrestricted reference or CASSCF)")
+            col = _index(evaluation, old)
+            others = [abs(v) for j, v in enumerate(o[match.row]) if j != col]
+            match = replace(match, column=col, overlap=float(o[match.row, col]),
+                            second_best=max(others, default=0.0))
+            new = old
         acc.mapping[target], acc.confidence[target] = new, match.confidence
         acc.window[target], acc.phase[new] = match.window, match.phase
         acc.flags.extend(row_flags(str(target), str(old), str(new), match, **self._opts()))
