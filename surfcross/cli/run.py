@@ -52,7 +52,7 @@ def _task_line(o: TaskOutcome) -> str:
 def job_summary_lines(result: JobResult) -> list[str]:
     """The end-of-job summary (one line per task)."""
     done = sum(o.converged for o in result.outcomes)
-    lines = [f"job {result.title or ''}: {done} of {len(result.outcomes)} task(s) "
+    lines = [f"job {result.title or result.run_dir.name}: {done} of {len(result.outcomes)} task(s) "
              f"converged/finished in {result.elapsed_s:.0f} s; folder {result.run_dir}"]
     lines += [_task_line(o) for o in result.outcomes]
     seen: list[str] = []

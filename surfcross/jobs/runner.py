@@ -274,8 +274,9 @@ def _job_folder(job: Job, out: str | Path | None) -> RunDirectory:
 
 def validate_job(job: Job) -> None:
     """Checks that need the molecule: labels fit its spin, every kind can run."""
+    source = job.source.name if job.source is not None else "job"
     for task in job.tasks:
-        where = f"task '{task.name}'"
+        where = f"{source}, task '{task.name}'"
         try:
             labels = parse_states(task_labels(task.kind, task.options))
             check_labels(job.molecule, labels)
