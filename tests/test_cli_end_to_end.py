@@ -161,28 +161,39 @@ def test_truncated_checkpoint_gives_a_clear_message(work):
     assert "checkpoint" in lines[0] and "s0_cut" in lines[0]
 
 
-def test_interrupt_with_sigint_then_resume(work, water_s1):
-    """Stop a run with SIGINT (Ctrl-C) after a few steps, resume it, compare."""
+def _default_signals() -> None:
+    # a shell starts background jobs with SIGINT ignored, and children inherit that; a user's
+    # Ctrl-C in a terminal arrives with the default disposition, which this restores
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
+@pytest.mark.parametrize("signum,code", [(signal.SIGINT, 130), (signal.SIGTERM, -signal.SIGTERM)],
+                         ids=["SIGINT", "SIGTERM"])
+def test_interrupt_with_a_signal_then_resume(work, water_s1, signum, code):
+    """Stop a run with Ctrl-C (SIGINT) or a queue's SIGTERM after a few steps, resume it."""
     env = dict(os.environ, OMP_NUM_THREADS="1")
+    name = f"s1_{signal.Signals(signum).name.lower()}"
     proc = subprocess.Popen(program() + ["-q", "relax", "water.xyz", "--state", "S1",
-                                         "--method", "cis", "--out", "s1_sigint"],
+                                         "--method", "cis", "--out", name],
                             cwd=work, env=env, text=True, stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE)
-    trajectory = work / "s1_sigint" / "trajectory.xyz"
+                            stderr=subprocess.PIPE, preexec_fn=_default_signals)
+    trajectory = work / name / "trajectory.xyz"
     deadline = time.monotonic() + 120
     while time.monotonic() < deadline and proc.poll() is None:
         if trajectory.exists() and trajectory.read_text().count("step=") >= 3:
             break
         time.sleep(0.01)
     assert proc.poll() is None, "the run ended before it could be interrupted"
-    proc.send_signal(signal.SIGINT)
+    proc.send_signal(signum)
     _, err = proc.communicate(timeout=120)
-    assert proc.returncode == 130 and "surfcross resume" in err and "Traceback" not in err
-    assert not (work / "s1_sigint" / "result.json").exists()
-    resumed = run("-q", "resume", "s1_sigint", cwd=work)
+    assert proc.returncode == code and "Traceback" not in err
+    if signum == signal.SIGINT:
+        assert "surfcross resume" in err
+    assert not (work / name / "result.json").exists()
+    resumed = run("-q", "resume", name, cwd=work)
     assert resumed.returncode == 0, resumed.stderr
     # the uninterrupted run is the reference (our own contract: within 1e-6 Eh)
-    assert result(work / "s1_sigint")["target_energies_eh"]["S1"] == pytest.approx(
+    assert result(work / name)["target_energies_eh"]["S1"] == pytest.approx(
         result(water_s1)["target_energies_eh"]["S1"], abs=1e-6)
 
 
