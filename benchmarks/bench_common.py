@@ -9,7 +9,7 @@ import contextlib
 import logging
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator
 
@@ -32,7 +32,6 @@ class Meter:
     time_states_s: float = 0.0
     time_gradients_s: float = 0.0
     time_overlaps_s: float = 0.0
-    per_point: list[dict[str, float]] = field(default_factory=list)
 
     @property
     def engine_s(self) -> float:
@@ -66,8 +65,6 @@ class MeteredEngine:
         m.time_states_s += dt
         m.scf_cycles += int(ev.scf_cycles)
         m.response_iterations += int(ev.response_iterations)
-        m.per_point.append({"states_s": dt, "scf_cycles": int(ev.scf_cycles),
-                            "response_iterations": int(ev.response_iterations)})
         return ev
 
     def gradients(self, evaluation, labels, couplings=()):
@@ -76,8 +73,6 @@ class MeteredEngine:
         dt = time.perf_counter() - start
         self.meter.gradients += 1
         self.meter.time_gradients_s += dt
-        if self.meter.per_point:
-            self.meter.per_point[-1]["gradients_s"] = dt
         return out
 
     def evaluate(self, geometry: Geometry, gradients_for=()):

@@ -80,7 +80,7 @@ def _table(header: list[str], rows: list[list[str]]) -> list[str]:
     return lines
 
 
-def _run_cell(run: dict, energy_key: str) -> str:
+def _run_cell(run: dict) -> str:
     if run.get("status") == "not installed":
         return "not installed"
     mark = "" if run.get("converged") else " (not converged)"
@@ -96,7 +96,7 @@ def crossing_lines(rows: list[dict]) -> list[str]:
     body = []
     for row in rows:
         runs = row["runs"]
-        cells = [row["case"]] + [_run_cell(runs[n], "mean_energy_eh") for n in names]
+        cells = [row["case"]] + [_run_cell(runs[n]) for n in names]
         for other in ("penalty", "plain"):
             ok = _both_converged(runs, "auto", other)
             cells.append(_fmt(runs["auto"]["evaluations"] / runs[other]["evaluations"], ".2f")
@@ -115,7 +115,7 @@ def minima_lines(rows: list[dict]) -> list[str]:
     body = []
     for row in rows:
         runs = row["runs"]
-        cells = [row["case"]] + [_run_cell(runs[n], "energy_eh") for n in names]
+        cells = [row["case"]] + [_run_cell(runs[n]) for n in names]
         ok = _both_converged(runs, "ours", "pyberny")
         cells.append(_fmt(runs["ours"]["evaluations"] / runs["pyberny"]["evaluations"], ".2f")
                      if ok else "-")

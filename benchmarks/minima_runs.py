@@ -67,8 +67,7 @@ def _ours(case: MinimumCase) -> dict[str, Any]:
             "wall_s": wall, "engine_s": m.engine_s, "overlaps_s": m.time_overlaps_s,
             "overhead_fraction": (wall - m.engine_s) / wall if wall > 0 else None,
             "overhead_without_overlaps": (wall - m.engine_s - m.time_overlaps_s) / wall
-            if wall > 0 else None,
-            "steps_timed": m.states}
+            if wall > 0 else None}
 
 
 def _tracked(case: MinimumCase):
