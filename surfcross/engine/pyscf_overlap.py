@@ -11,6 +11,8 @@ approximation suited to state tracking (see :mod:`surfcross.tracking.overlap`).
 
 from __future__ import annotations
 
+from collections import OrderedDict
+
 import logging
 
 import numpy as np
@@ -26,7 +28,28 @@ __all__ = ["response_state_overlaps", "cross_ao_overlap"]
 log = logging.getLogger(__name__)
 
 
+#: the last few molecules built for overlaps, keyed by (symbols, coordinates, basis, cart):
+#: consecutive overlap calls share one geometry, and building a Mole costs more than the
+#: overlap integrals themselves
+_MOLECULES: "OrderedDict[tuple, gto.Mole]" = OrderedDict()
+_CACHE_SIZE = 4
+
+
 def _build(wfn: ResponseWavefunction) -> gto.Mole:
+    key = (tuple(wfn.symbols), np.asarray(wfn.coords_bohr, float).tobytes(), str(wfn.basis),
+           bool(wfn.cartesian_basis))
+    mol = _MOLECULES.get(key)
+    if mol is None:
+        mol = _new_molecule(wfn)
+        _MOLECULES[key] = mol
+        while len(_MOLECULES) > _CACHE_SIZE:
+            _MOLECULES.popitem(last=False)
+    else:
+        _MOLECULES.move_to_end(key)
+    return mol
+
+
+def _new_molecule(wfn: ResponseWavefunction) -> gto.Mole:
     """A PySCF molecule carrying only what overlap integrals need (charge and spin do not
     enter them)."""
     mol = gto.Mole()

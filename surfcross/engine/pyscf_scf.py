@@ -96,6 +96,7 @@ def _new_scf(mol: Any, spec: MethodSpec, unrestricted: bool) -> Any:
     # energies and gradients with errors of ~1e-8 Eh and ~1e-5 Eh/bohr; ask for more
     mf.conv_tol_grad = ORBITAL_GRADIENT_FACTOR * np.sqrt(spec.scf_conv_tol)
     mf.max_memory = spec.max_memory_mb
+    mf.chkfile = None  # no per-cycle HDF5 scratch file: the run record is ours
     mf.verbose = mol.verbose
     mf.stdout = mol.stdout
     return mf

@@ -42,8 +42,9 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
         Two labels, e.g. 'S1,S2' (conical intersection) or 'S1,T1' / 'S0,T1' (spin crossing).
     search
         'auto' (projected search with branching-plane updating, or with derivative couplings
-        when the engine has them, for states of one spin; spin-crossing search otherwise),
-        'penalty', 'projected' or 'spin'.
+        when the engine has them, for states of one spin; the one-dimensional spin-crossing
+        search for states of different spin and for the reference state with a
+        linear-response state, which do not couple), 'penalty', 'projected' or 'spin'.
     options
         Convergence preset ('tight' also tightens the gap tolerance from 1e-3 to 1e-4 Eh),
         tracking, step limit; ``characterize`` runs the in-plane probe and the branching
@@ -53,7 +54,11 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     """
     labels = parse_states(states, count=2)
     check_labels(geometry, labels)
+    one_dimensional = _one_dimensional(labels, method)
     name = choose_search(labels, search)
+    if search == "auto" and one_dimensional:
+        # the reference and a response state do not couple: their crossing is one-dimensional
+        name = "spin"
     spec = prepare_method(method, labels)
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
     settings = default_settings(name, _gap_preset(options))
@@ -83,7 +88,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                          message="the gap stayed above the tolerance at the largest penalty "
                                  "weight: probably an avoided crossing")
     if result.converged and options.characterize:
-        branching, probe = characterize(engine, result.value, same_spin=labels[0].manifold == labels[1].manifold)
+        branching, probe = characterize(engine, result.value, same_spin=not one_dimensional)
         if probe is not None:
             data["probe"] = probe
             if probe["verdict"] == "avoided":
@@ -93,6 +98,14 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
         warnings += list(result.value.evaluation.warnings)
     return finish_task("cross", result, labels, spec, run_dir, search=name, warnings=warnings,
                        data=data, branching=branching)
+
+
+def _one_dimensional(labels: Sequence[StateLabel], method: MethodSpec) -> bool:
+    """True when the pair cannot form a conical intersection in this method: states of
+    different spin, or the reference state with a linear-response state (no coupling)."""
+    if labels[0].manifold != labels[1].manifold:
+        return True
+    return method.method != "casscf" and any(lab.is_reference for lab in labels)
 
 
 def characterize(engine: Any, value: Any, *, same_spin: bool) -> tuple[dict | None, dict | None]:
