@@ -36,6 +36,7 @@ __all__ = [
     "StateInfo",
     "Evaluation",
     "Engine",
+    "EngineBase",
 ]
 
 #: linear-response methods of the PySCF response engine; 'casscf' is the state-averaged engine
@@ -290,3 +291,19 @@ class Engine(Protocol):
 
     def close(self) -> None:
         """Release scratch files and PySCF objects."""
+
+
+class EngineBase:
+    """Shared behaviour of the concrete engines (they implement ``states``/``gradients``)."""
+
+    def evaluate(self, geometry: Geometry, gradients_for: Iterable[StateLabel | str] = ()) -> Evaluation:
+        """:meth:`states`, then :meth:`gradients` of ``gradients_for`` (no tracking between)."""
+        evaluation = self.states(geometry)  # type: ignore[attr-defined]
+        labels = [parse_state(x) for x in gradients_for]
+        return self.gradients(evaluation, labels) if labels else evaluation  # type: ignore[attr-defined]
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.close()  # type: ignore[attr-defined]

@@ -32,14 +32,14 @@ from __future__ import annotations
 import logging
 import time
 from dataclasses import replace
-from typing import Iterable, Sequence
+from typing import Sequence
 
 import numpy as np
 
 from ..errors import EngineError, InputError
 from ..geometry import Geometry
 from ..states import SINGLET, StateLabel, parse_state
-from .base import Evaluation, MethodSpec, StateInfo
+from .base import EngineBase, Evaluation, MethodSpec, StateInfo
 from .casscf_checks import STATE_NOTE_MARK, continuity_warnings, property_warnings
 from .casscf_solver import CasscfSetup, solve_state_averaged, state_properties
 from .casscf_wavefunction import ActiveSpaceWavefunction, build_mole, casscf_overlap_matrix
@@ -71,7 +71,7 @@ LIMITATIONS = (
 )
 
 
-class CASSCFEngine:
+class CASSCFEngine(EngineBase):
     """State-averaged CASSCF through PySCF (see the module docstring for limits).
 
     Parameters
@@ -183,13 +183,6 @@ class CASSCFEngine:
             out = replace(out, warnings=tuple(out.warnings) + tuple(notes))
         return out
 
-    def evaluate(self, geometry: Geometry,
-                 gradients_for: Iterable[StateLabel | str] = ()) -> Evaluation:
-        """:meth:`states` then :meth:`gradients` (no tracking in between)."""
-        evaluation = self.states(geometry)
-        labels = [parse_state(x) for x in gradients_for]
-        return self.gradients(evaluation, labels) if labels else evaluation
-
     def overlaps(self, bra: Evaluation, ket: Evaluation) -> dict[str, np.ndarray]:
         """{'S': <Psi_I(bra)|Psi_J(ket)>}, rows and columns in state order S0, S1, ..."""
         return {SINGLET: casscf_overlap_matrix(bra.wavefunction, ket.wavefunction)}
@@ -201,12 +194,6 @@ class CASSCFEngine:
         if self._log is not None:
             self._log.close()
             self._log = None
-
-    def __enter__(self) -> "CASSCFEngine":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
     # ------------------------------------------------------------------ helpers
     def _mole(self, geometry: Geometry):

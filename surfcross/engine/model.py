@@ -27,14 +27,14 @@ labels and manifolds look like those of a real response calculation.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Iterable, Sequence
+from typing import Sequence
 
 import numpy as np
 
 from ..errors import InputError
 from ..geometry import Geometry
 from ..states import StateLabel, parse_state
-from .base import Evaluation, MethodSpec, StateInfo
+from .base import EngineBase, Evaluation, MethodSpec, StateInfo
 
 __all__ = [
     "ModelSurface",
@@ -164,7 +164,7 @@ class _ModelWavefunction:
     vectors: dict = field(default_factory=dict)
 
 
-class ModelEngine:
+class ModelEngine(EngineBase):
     """An :class:`~surfcross.engine.base.Engine` on an analytic :class:`ModelSurface`.
 
     States: ``S0`` (uncoupled well) plus the two model states. For a same-manifold pair
@@ -249,12 +249,6 @@ class ModelEngine:
                 h = np.zeros(3 * self.natom)  # different spin or S0: no coupling
             coup[(a, b)] = h.reshape(shape)
         return evaluation.with_gradients(grads, coup)
-
-    def evaluate(self, geometry: Geometry,
-                 gradients_for: Iterable[StateLabel | str] = ()) -> Evaluation:
-        ev = self.states(geometry)
-        wanted = [parse_state(x) for x in gradients_for]
-        return self.gradients(ev, wanted) if wanted else ev
 
     def overlaps(self, bra: Evaluation, ket: Evaluation) -> dict[str, np.ndarray]:
         out: dict[str, np.ndarray] = {}

@@ -35,14 +35,14 @@ import contextlib
 import logging
 import time
 from dataclasses import dataclass, field
-from typing import Any, Iterable, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 
 from ..errors import EngineError, InputError
 from ..geometry import Geometry
-from ..states import StateLabel, parse_state, parse_states
-from .base import Evaluation, MethodSpec, StateInfo
+from ..states import StateLabel, parse_states
+from .base import EngineBase, Evaluation, MethodSpec, StateInfo
 from .pyscf_records import (manifold_wavefunction, reference_spin_square, response_states)
 from .pyscf_scf import build_molecule, check_functional, run_reference, stabilize, warm_density
 from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, make_response, project_guess,
@@ -65,7 +65,7 @@ class _Held:
     gradient_objects: dict[str, Any] = field(default_factory=dict)
 
 
-class PySCFResponseEngine:
+class PySCFResponseEngine(EngineBase):
     """SCF + linear-response states and analytic gradients from PySCF.
 
     Parameters
@@ -265,13 +265,6 @@ class PySCFResponseEngine:
         return np.array(value, float)
 
     # ------------------------------------------------------------------ the rest
-    def evaluate(self, geometry: Geometry,
-                 gradients_for: Iterable[StateLabel | str] = ()) -> Evaluation:
-        """:meth:`states`, then :meth:`gradients` of ``gradients_for``."""
-        evaluation = self.states(geometry)
-        labels = [parse_state(x) for x in gradients_for]
-        return self.gradients(evaluation, labels) if labels else evaluation
-
     def overlaps(self, bra: Evaluation, ket: Evaluation) -> dict[str, np.ndarray]:
         """Wavefunction overlaps per manifold (delegated to the overlap module)."""
         from .pyscf_overlap import response_state_overlaps
@@ -286,8 +279,3 @@ class PySCFResponseEngine:
             self._log.close()
             self._log = None
 
-    def __enter__(self) -> "PySCFResponseEngine":
-        return self
-
-    def __exit__(self, *exc: Any) -> None:
-        self.close()
