@@ -233,7 +233,8 @@ class CASSCFEngine(EngineBase):
             self._limits_noted = True
         for note in notes:
             # states trading character is expected near crossings: informational only
-            level = logging.INFO if STATE_NOTE_MARK in note else logging.WARNING
+            # (the method-limits note travels in Evaluation.warnings and reaches the user there)
+            level = logging.INFO if (STATE_NOTE_MARK in note or note == LIMITATIONS) else logging.WARNING
             logger.log(level, note)
         return tuple(notes)
 
