@@ -271,8 +271,12 @@ class Optimizer:
                 trust_min=s.trust_min, trust_max=s.trust_max,
                 rise_tolerance=s.merit_rise_tolerance, objective_rejects=value.reject_step)
         else:
+            # the prediction is that of the RFO step itself: the projection applied afterwards
+            # only removes redundant/constrained components (no first-order change of the
+            # geometry), but with a quasi-Newton H that has learned curvature along them it
+            # could turn the predicted change positive for a step that lowers the energy
             decision = judge_true_step(
-                actual=value.value - st.value.value, predicted=quadratic_change(st.gq, Hw, dq),
+                actual=value.value - st.value.value, predicted=quadratic_change(st.gq, Hw, prop.step),
                 step_length=length, radius=st.trust, trust_min=s.trust_min,
                 trust_max=s.trust_max, rise_tolerance=s.energy_rise_tolerance,
                 objective_rejects=value.reject_step)
