@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import logging
+import signal
 import sys
 
 from ..errors import CheckpointError, InputError, SurfcrossError
@@ -62,6 +63,7 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help(sys.stderr)
         return EXIT_BAD_INPUT
     _configure_logging(args.verbose, args.quiet)
+    previous = _install_interrupt_handler()
     try:
         return int(args.handler(args))
     except (InputError, CheckpointError) as exc:  # bad input, or a run that cannot continue
@@ -74,6 +76,32 @@ def main(argv: list[str] | None = None) -> int:
         print("surfcross: interrupted; 'surfcross resume DIR' continues from the checkpoint",
               file=sys.stderr)
         return 130
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGINT, previous)
+
+
+def _install_interrupt_handler():
+    """First Ctrl-C: finish the current step (it reaches the checkpoint), then stop with exit
+    code 130. Second Ctrl-C: stop at once. Returns the previous handler (None if unchanged)."""
+    from ..tasks.run import request_stop
+
+    if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+        return None  # started with interrupts ignored (e.g. a background job): keep it so
+
+    def on_interrupt(signum, frame):
+        if on_interrupt.asked:
+            raise KeyboardInterrupt
+        on_interrupt.asked = True
+        request_stop()
+        print("surfcross: stopping after the current step (Ctrl-C again to stop at once)",
+              file=sys.stderr)
+
+    on_interrupt.asked = False
+    try:
+        return signal.signal(signal.SIGINT, on_interrupt)
+    except ValueError:  # not the main thread (e.g. main() called from a worker)
+        return None
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+import threading
 from typing import Any, Callable, Iterable, Mapping
 
 from ..engine.base import MethodSpec
@@ -12,9 +13,25 @@ from ..optimize import OptimizationResult
 from ..states import StateLabel
 from .common import RunOptions, TaskResult
 
-__all__ = ["task_spec", "run_optimization", "finish_task"]
+__all__ = ["task_spec", "run_optimization", "finish_task", "STOP_REQUEST", "request_stop"]
 
 log = logging.getLogger(__name__)
+
+#: set (e.g. by the command line's Ctrl-C handler) to end the running optimization cleanly
+#: after its current step, once that step is in the checkpoint
+STOP_REQUEST = threading.Event()
+
+
+def request_stop() -> None:
+    """Ask the running optimization to stop after the step in progress (thread-safe)."""
+    STOP_REQUEST.set()
+
+
+def _stop_when_asked(record: Any) -> None:
+    """Observer (attached after the run directory's writers): raises KeyboardInterrupt at the
+    first step record after a stop request, so the interruption never cuts a step in half."""
+    if STOP_REQUEST.is_set():
+        raise KeyboardInterrupt("stop requested")
 
 
 def task_spec(kind: str, geometry: Geometry, labels: Iterable[StateLabel], spec: MethodSpec,
@@ -30,6 +47,7 @@ def run_optimization(optimizer: Any, geometry: Geometry, run_dir: Any, spec: Map
                      *, observers: Iterable[Callable] = (), progress: bool = True,
                      resume_state: Mapping[str, Any] | None = None) -> OptimizationResult:
     """Attach the run directory's observers (and the caller's) and run the optimizer."""
+    STOP_REQUEST.clear()
     if run_dir is not None:
         if resume_state is None:
             run_dir.save_task(spec)
@@ -41,6 +59,7 @@ def run_optimization(optimizer: Any, geometry: Geometry, run_dir: Any, spec: Map
         optimizer.attach(ProgressWriter())
     for obs in observers:
         optimizer.attach(obs)
+    optimizer.attach(_stop_when_asked)
     if resume_state:
         optimizer.load_state_dict(resume_state)
     return optimizer.run(geometry)
