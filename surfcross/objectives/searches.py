@@ -51,15 +51,28 @@ def gap_tolerance(preset: str = "default") -> float:
                          f"{', '.join(GAP_TOLERANCES)}") from None
 
 
-def choose_search(states: Sequence[str | StateLabel], search: str = "auto") -> str:
-    """The concrete search for a pair: resolves 'auto' by the spin manifolds of the pair."""
+def choose_search(states: Sequence[str | StateLabel], search: str = "auto",
+                  method: Any = None) -> str:
+    """The concrete search for a pair: resolves 'auto' by whether the pair can couple.
+
+    States of one spin manifold form conical intersections ('projected'); states of different
+    spin do not couple ('spin'). With a linear-response method (anything but 'casscf' in
+    ``method``, a MethodSpec) the reference state does not couple to response states either,
+    so an S0/Sn pair is a one-dimensional crossing there ('spin') -- the wrong topology, which
+    the objective's warning explains.
+    """
     name = search.strip().lower()
     if name not in SEARCHES:
         raise InputError(f"unknown crossing search {search!r}: choose {', '.join(SEARCHES)}")
     if name != "auto":
         return name
     a, b = parse_states(list(states), count=2)
-    return "projected" if a.manifold == b.manifold else "spin"
+    if a.manifold != b.manifold:
+        return "spin"
+    response = method is not None and getattr(method, "method", "casscf") != "casscf"
+    if response and (a.is_reference or b.is_reference):
+        return "spin"
+    return "projected"
 
 
 def default_settings(search: str, preset: str = "default") -> Any:
@@ -91,7 +104,7 @@ def make_crossing_objective(engine: Engine, states: Sequence[str | StateLabel],
     tracker, tracking_options
         A ready pair tracker, or options for the default one.
     """
-    name = choose_search(states, search)
+    name = choose_search(states, search, getattr(engine, "spec", None))
     if settings is None:
         settings = default_settings(name, preset)
     elif not isinstance(settings, _SETTINGS[name]):

@@ -55,10 +55,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     labels = parse_states(states, count=2)
     check_labels(geometry, labels)
     one_dimensional = _one_dimensional(labels, method)
-    name = choose_search(labels, search)
-    if search == "auto" and one_dimensional:
-        # the reference and a response state do not couple: their crossing is one-dimensional
-        name = "spin"
+    name = choose_search(labels, search, method)
     spec = prepare_method(method, labels)
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
     settings = default_settings(name, _gap_preset(options))
