@@ -183,3 +183,14 @@ def test_reference_state_pair_warns_about_wrong_seam_dimension():
     excited = pair_warnings(_ResponseLike(), parse_states("S1,S2"))
     assert not any("wrong dimension" in t for t in excited)
     assert any("higher-level" in t for t in excited)
+
+
+@pytest.mark.parametrize("states", [("S1", "S2"), ("S2", "S1")])
+def test_pair_energies_keep_their_adiabatic_names_in_either_order(states):
+    # reference: the engine's own adiabatic energies (eigenvalues of the model's diabatic 2x2
+    # matrix); the order in which the user names the pair must not swap the reported energies
+    eng = conical_model()
+    direct = eng.states(model_geometry(Q)).energies()
+    value = PenaltyObjective(eng, states).evaluate(model_geometry(Q))
+    assert value.energies_eh["S1"] == pytest.approx(direct["S1"], abs=1e-12)
+    assert value.energies_eh["S2"] == pytest.approx(direct["S2"], abs=1e-12)

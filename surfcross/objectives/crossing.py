@@ -70,8 +70,8 @@ class PairEvaluation:
     lower, upper
         Adiabatic labels of the pair at this geometry, ordered by energy.
     task_labels
-        The task labels carried by (lower, upper): for a same-manifold pair the first task
-        label given names the lower state; different manifolds keep their own label.
+        The task labels carried by (lower, upper): for a same-manifold pair the label with the
+        smaller index names the lower state; different manifolds keep their own label.
     e_lower, e_upper, gap
         Energies and gap = e_upper - e_lower >= 0.
     g_lower, g_upper, x1, gbar
@@ -222,6 +222,9 @@ class PairEvaluator:
     def _task_labels(self, lower: StateLabel, upper: StateLabel) -> tuple[str, str]:
         a, b = self.targets
         if self.same_manifold:
+            # adiabatic names within one manifold: the smaller index names the lower state,
+            # whichever order the pair was given in
+            a, b = sorted((a, b), key=lambda t: t.index)
             return str(a), str(b)
         return (str(a), str(b)) if lower.manifold == a.manifold else (str(b), str(a))
 
