@@ -64,11 +64,11 @@ def slsqp_crossing(engine, start: Geometry, labels, same_manifold: bool):
     return start.with_coords(res.x.reshape(-1, 3)), 0.5 * sum(f(res.x)[0]), res
 
 
-def our_search(engine, start: Geometry, labels, search="auto"):
+def our_search(engine, start: Geometry, labels, search="auto", convergence="normal"):
     obj = make_crossing_objective(engine, labels, search, preset="tight")
     opt = Optimizer(obj, CartesianCoordinates(start.natom),
                     settings=optimizer_settings_for(obj.search, OptimizerSettings(max_iterations=80)),
-                    convergence=ConvergenceSettings.preset("normal"))
+                    convergence=ConvergenceSettings.preset(convergence))
     return opt.run(start), obj
 
 
@@ -90,7 +90,9 @@ def methylene(angle_deg: float, r_angstrom: float = 1.1) -> Geometry:
 def test_ethylene_s1_s2_intersection_matches_slsqp():
     spec = MethodSpec(method="cis", basis="sto-3g", roots=3)
     start = ethylene_start()
-    result, obj = our_search(make_engine(spec), start, ("S1", "S2"))
+    # tight thresholds: the seam is very flat here (a stop at a projected force of 3e-4
+    # Eh/bohr, inside the 'normal' thresholds, was seen 3e-4 Eh above the SLSQP minimum)
+    result, obj = our_search(make_engine(spec), start, ("S1", "S2"), convergence="tight")
     assert result.converged, result.message
     assert obj.search == "projected" and obj.plane == "updated"  # CIS: no couplings
     assert result.gap_eh <= 1e-4

@@ -22,7 +22,7 @@ import numpy as np
 from ..errors import ResponseNotConvergedError
 
 __all__ = ["ResponseRoots", "make_response", "solve_response", "cis_like_amplitudes",
-           "project_guess", "EXTRA_ROOTS"]
+           "project_guess", "spread_guess", "EXTRA_ROOTS"]
 
 logger = logging.getLogger(__name__)
 
@@ -32,6 +32,9 @@ EXTRA_ROOTS = 2
 FIRST_MAX_CYCLE = 100
 RETRY_MAX_CYCLE = 300
 RETRY_LINDEP = 1e-14
+#: relative size of the dense, fixed-seed admixture added to every fresh Davidson guess
+GUESS_SPREAD = 1e-2
+_SPREAD_SEED = 20240613
 
 
 @dataclass
@@ -115,7 +118,8 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
                    x0: np.ndarray | None, what: str) -> ResponseRoots:
     """Solve for ``needed`` roots (+ EXTRA_ROOTS) and check every root's convergence.
 
-    Attempt 1: ``needed + EXTRA_ROOTS`` roots from ``x0`` (or PySCF's orbital-energy guess).
+    Attempt 1: ``needed + EXTRA_ROOTS`` roots from ``x0`` (or PySCF's orbital-energy guess),
+    with the symmetry-breaking admixture of :func:`spread_guess`.
     Attempt 2: restart from attempt 1's vectors with three times the Davidson cycles (a fresh
     subspace and a lower linear-dependence threshold cure most stalls).
     Attempt 3: two more roots from PySCF's default guess.
@@ -129,8 +133,10 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
     for k, (n, cycles, guess) in enumerate(attempts):
         if isinstance(guess, str):
             guess = np.asarray([xy_to_vector(xy, unrestricted, full) for xy in td.xy])
-        if guess is not None and len(guess) < n:
-            guess = None
+        else:
+            if guess is not None and len(guess) < n:
+                guess = None
+            guess = spread_guess(td, n, guess)
         td.nstates, td.max_cycle = n, cycles
         if k > 0:
             # small problems exhaust the trial space; a lower linear-dependence threshold
@@ -160,6 +166,23 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
         result.notes.append(f"{what}: only {extra} of {EXTRA_ROOTS} extra roots above the asked "
                             "ones converged; state tracking has less room above the top root")
     return result
+
+
+def spread_guess(td: Any, n: int, guess: np.ndarray | None) -> np.ndarray:
+    """Guess vectors (PySCF's own when ``guess`` is None) plus a small dense admixture.
+
+    Davidson residuals keep the spatial symmetry of the trial vectors. PySCF's default guess
+    (the lowest orbital-energy differences) and the previous geometry's roots can all belong
+    to a few irreducible representations; at a symmetric geometry the solver then never
+    reaches states of the others, and higher roots are reported as the lowest ones (C2v water
+    with stretched bonds: S1 0.045 Eh too high). A fixed-seed random component of relative
+    size GUESS_SPREAD in every vector lets all symmetries in; results stay reproducible.
+    """
+    x = np.atleast_2d(np.asarray(td.get_init_guess(td._scf, n) if guess is None else guess,
+                                 dtype=float))
+    noise = np.random.default_rng(_SPREAD_SEED).standard_normal(x.shape)
+    scale = GUESS_SPREAD * np.linalg.norm(x, axis=1) / np.linalg.norm(noise, axis=1)
+    return x + noise * scale[:, None]
 
 
 def xy_to_vector(xy: Sequence, unrestricted: bool, full: bool) -> np.ndarray:
