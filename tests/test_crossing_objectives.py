@@ -194,3 +194,13 @@ def test_pair_energies_keep_their_adiabatic_names_in_either_order(states):
     value = PenaltyObjective(eng, states).evaluate(model_geometry(Q))
     assert value.energies_eh["S1"] == pytest.approx(direct["S1"], abs=1e-12)
     assert value.energies_eh["S2"] == pytest.approx(direct["S2"], abs=1e-12)
+
+
+def test_reference_with_a_triplet_is_not_called_a_wrong_topology():
+    # textbook (and the method notes, section 0): states of different spin do not couple
+    # through a spin-free Hamiltonian, so an S0/T1 crossing is one-dimensional -- the right
+    # dimension, not the linear-response artefact of S0/Sn pairs
+    texts = pair_warnings(_ResponseLike(), parse_states("S0,T1"))
+    assert not any("wrong dimension" in t or "instead of a conical" in t for t in texts)
+    assert any("instabilit" in t for t in texts)  # the reference near a triplet instability
+    assert any("higher-level" in t for t in texts)

@@ -132,9 +132,18 @@ def pair_warnings(engine: Engine, targets: Sequence[StateLabel]) -> tuple[str, .
             return False
         return not (label.manifold == "T" and label.index == 1 and high_spin)
 
-    if (not model and method in _RESPONSE_METHODS and any(t.is_reference for t in targets)
-            and any(is_response(t) for t in targets)):
-        ref = next(t for t in targets if t.is_reference)
+    response = [t for t in targets if is_response(t)]
+    ref = next((t for t in targets if t.is_reference), None)
+    linear = not model and method in _RESPONSE_METHODS and ref is not None
+    if linear and response and all(t.manifold != ref.manifold for t in response):
+        # different spin: a one-dimensional crossing is the right dimension here
+        out.append(
+            f"The pair contains the reference state {ref} and a response state of other spin: "
+            "their crossing is one-dimensional, as it should be, but where the excitation "
+            "energy of that state approaches zero the closed-shell reference is close to an "
+            "instability and linear response becomes unreliable; check the crossing with a "
+            "spin-adapted multireference method.")
+    elif linear and response:
         out.append(
             f"The pair contains the reference state {ref}: with {method.upper()} (a closed-shell "
             "linear-response method) the reference does not couple to the response states, so "
