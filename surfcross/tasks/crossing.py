@@ -84,7 +84,12 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
         result = replace(result, status=Status.FAILED,
                          message="the gap stayed above the tolerance at the largest penalty "
                                  "weight: probably an avoided crossing")
-    if result.converged and options.characterize:
+    if result.converged and options.characterize and not one_dimensional \
+            and getattr(result.value, "subspace", None) is None:
+        # the penalty search keeps no branching-plane directions to probe or analyse
+        warnings.append("not characterized: the penalty search gives no branching plane; rerun "
+                        "from final.xyz with --search projected to analyse and probe the crossing")
+    elif result.converged and options.characterize:
         branching, probe = characterize(engine, result.value, same_spin=not one_dimensional)
         if probe is not None:
             data["probe"] = probe

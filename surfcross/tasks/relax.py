@@ -7,11 +7,13 @@ from typing import Any, Callable, Iterable
 
 from ..analysis.curvature import check_curvature, displace_along
 from ..engine.base import MethodSpec
+from ..errors import SurfcrossError
 from ..geometry import Geometry
 from ..objectives.single import SingleStateObjective
 from ..states import StateLabel, parse_state
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
 from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
+from ..units import BOHR_IN_ANGSTROM
 from .run import finish_task, run_optimization, task_spec
 
 __all__ = ["relax"]
@@ -55,7 +57,7 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
     warnings = method_warnings(spec, [label])
     data: dict[str, Any] = {}
-    start = geometry
+    start = geometry if resume_state else _at_targets(geometry, options)
     for attempt in range(MAX_RESTARTS + 1):
         objective = SingleStateObjective(engine, label, tracking=tracking_options(options))
         coords = build_coordinates(start, options)
@@ -86,3 +88,25 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         warnings += list(result.value.evaluation.warnings)
     return finish_task("relax", result, [label], spec, run_dir, warnings=warnings, data=data,
                        reorderings=reorderings)
+
+
+def _at_targets(geometry: Geometry, options: RunOptions) -> Geometry:
+    """The start geometry with every held coordinate that has a target value set to it.
+
+    Minimizing from a point where a held coordinate is far from its target mixes the drive to
+    the target with the energy decrease, and the trust region then rejects every step; the
+    displacement (the same one a relaxed scan makes) removes that conflict. When no direct
+    displacement exists, the minimization drives the coordinate itself.
+    """
+    from ..workflows.coordinate import drive_coordinate  # workflows import tasks
+
+    held = [c for c in options.constraints if c.kind != "atom" and c.target is not None]
+    for c in held:
+        c.check(geometry.natom)
+        value = c.target * BOHR_IN_ANGSTROM if c.kind == "bond" else c.target
+        try:
+            geometry = drive_coordinate(geometry, c.atoms, value, options.constraints)
+        except SurfcrossError as exc:
+            log.info("could not set %s %s to %g before minimizing (%s): the minimization "
+                     "drives it", c.kind, "-".join(str(a + 1) for a in c.atoms), value, exc)
+    return geometry

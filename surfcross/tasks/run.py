@@ -9,7 +9,8 @@ from typing import Any, Callable, Iterable, Mapping
 from ..engine.base import MethodSpec
 from ..geometry import Geometry
 from ..io.results import result_dict
-from ..optimize import OptimizationResult
+from ..errors import BackTransformError, EngineError, StateTrackingError
+from ..optimize import OptimizationResult, Status
 from ..states import StateLabel
 from .common import RunOptions, TaskResult
 
@@ -62,7 +63,29 @@ def run_optimization(optimizer: Any, geometry: Geometry, run_dir: Any, spec: Map
     optimizer.attach(_stop_when_asked)
     if resume_state:
         optimizer.load_state_dict(resume_state)
-    return optimizer.run(geometry)
+    try:
+        return optimizer.run(geometry)
+    except KeyboardInterrupt as exc:  # tell the command line which folder to resume
+        if run_dir is not None and getattr(exc, "run_dir", None) is None:
+            exc.run_dir = run_dir.path
+        raise
+    except (EngineError, StateTrackingError, BackTransformError) as exc:
+        accepted = [r for r in getattr(optimizer, "history", ()) if r.accepted]
+        if not accepted:
+            raise  # nothing computed yet: the start geometry or the settings are at fault
+        return _failed_result(optimizer, accepted[-1], exc)
+
+
+def _failed_result(optimizer: Any, last: Any, exc: Exception) -> OptimizationResult:
+    """A run that broke off mid-way (SCF failure, lost state, ...) as a 'failed' outcome at
+    its last accepted step, so the run record is still written and the checkpoint resumable."""
+    message = " ".join(str(exc).split())
+    log.warning("run stopped at step %d: %s", last.iteration, message)
+    return OptimizationResult(
+        status=Status.FAILED, geometry=last.geometry, value=last.value,
+        message=f"stopped after step {last.iteration}: {message}",
+        iterations=last.iteration, evaluations=int(getattr(optimizer, "evaluations", 0)),
+        history=tuple(optimizer.history), warnings=tuple(getattr(optimizer, "warnings", ())))
 
 
 def finish_task(kind: str, result: OptimizationResult, labels: Iterable[StateLabel],
