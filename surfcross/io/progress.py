@@ -90,7 +90,8 @@ def step_line(record: Any, previous_roots: Iterable[str] = ()) -> str:
     if record.converged:
         parts.append("[converged]")
     if not record.accepted:
-        parts.append("[rejected" + (f": {record.message}]" if record.message else "]"))
+        why = record.message.removeprefix("rejected").lstrip(": ")
+        parts.append("[rejected" + (f": {why}]" if why else "]"))
     elif record.message:
         parts.append(f"({record.message})")
     return "  ".join(parts)

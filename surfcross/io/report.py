@@ -32,7 +32,10 @@ def method_limits(method: Mapping[str, Any], states: Sequence[str] = ()) -> list
         notes.append(
             "Linear response from one reference determinant has no doubly excited states, and "
             "charge-transfer or Rydberg states depend strongly on the functional and basis.")
-        if any(label.is_reference for label in labels) and len(labels) >= 2:
+        # the reference with a response state of its own spin (a singlet/triplet pair
+        # crosses on a seam of the right dimension)
+        if any(a.is_reference and not b.is_reference and a.manifold == b.manifold
+               for a in labels for b in labels):
             notes.append(
                 "This crossing involves the reference (ground) state. In CIS/TDA/TDHF/TDDFT the "
                 "reference does not couple to the response states, so its crossings with them "
@@ -46,6 +49,11 @@ def method_limits(method: Mapping[str, Any], states: Sequence[str] = ()) -> list
         if name == "cis" or (name == "tda" and not method.get("xc")):
             notes.append("CIS lacks electron correlation: excitation energies are typically "
                          "too high by an electronvolt or more.")
+    if len(labels) == 2 and labels[0].manifold != labels[1].manifold:
+        notes.append(
+            "A crossing of states of different spin is a geometric landmark only: how fast the "
+            "molecule changes spin there depends on the spin-orbit coupling, which is not "
+            "computed here.")
     if name == "casscf":
         notes.append("State-averaged CASSCF depends on the active space and state weights and "
                      "lacks dynamic correlation; energies need a perturbative correction.")

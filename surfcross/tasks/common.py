@@ -192,7 +192,11 @@ def check_labels(geometry: Geometry, labels: Sequence[StateLabel]) -> None:
 def method_warnings(spec: MethodSpec, labels: Sequence[StateLabel]) -> list[str]:
     """Warnings about the method's known limits for these states."""
     out = []
-    if spec.method != "casscf" and any(lab.is_reference for lab in labels) and len(labels) > 1:
+    # the reference with a response state of its own spin (a singlet/triplet pair crosses
+    # on a seam of the right dimension)
+    if spec.method != "casscf" and any(a.is_reference and not b.is_reference
+                                       and a.manifold == b.manifold
+                                       for a in labels for b in labels):
         out.append(
             f"{'/'.join(map(str, labels))} involves the reference state: with linear-response "
             f"{spec.method.upper()} the intersection with the reference has the wrong dimension "
