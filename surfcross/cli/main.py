@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import logging
+import os
 import signal
 import sys
 
@@ -66,14 +67,23 @@ def main(argv: list[str] | None = None) -> int:
     previous = _install_interrupt_handler()
     try:
         return int(args.handler(args))
+    except BrokenPipeError:  # output piped into a reader that closed early (e.g. head)
+        # point stdout at the null device so the flush at exit does not fail a second time
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
     except (InputError, CheckpointError) as exc:  # bad input, or a run that cannot continue
+        if getattr(args, "created_run_dir", None) is not None:
+            from ..io.run import discard_unused
+
+            discard_unused(args.created_run_dir)
         print(f"surfcross: error: {_one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except SurfcrossError as exc:
         print(f"surfcross: failed: {_one_line(exc)}", file=sys.stderr)
         return EXIT_NOT_CONVERGED
-    except KeyboardInterrupt:
-        print("surfcross: interrupted; 'surfcross resume DIR' continues from the checkpoint",
+    except KeyboardInterrupt as exc:
+        where = getattr(exc, "run_dir", None) or "DIR"
+        print(f"surfcross: interrupted; 'surfcross resume {where}' continues from the checkpoint",
               file=sys.stderr)
         return 130
     finally:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 from ..engine.base import METHODS, MethodSpec
 from ..errors import InputError
@@ -190,4 +191,8 @@ def open_run_dir(args: argparse.Namespace, task: str):
     """The run directory of a task: --out, or a new folder named after the input and task."""
     from ..io.run import RunDirectory
 
-    return RunDirectory.create(args.out, input_name=args.geometry, task=task)
+    new = args.out is None or not Path(args.out).exists()
+    run_dir = RunDirectory.create(args.out, input_name=args.geometry, task=task)
+    if new:  # removed again if bad input stops the command before anything is written
+        args.created_run_dir = run_dir.path
+    return run_dir

@@ -17,6 +17,10 @@ def print_summary(result: TaskResult) -> None:
     status = "converged" if result.converged else f"NOT converged ({result.status})"
     print(f"{result.task}: {status} after {result.iterations} steps, "
           f"{result.evaluations} evaluations")
+    if not result.converged and result.message:
+        print(f"  reason: {result.message}")
+        if result.status == "step limit reached" and result.run_dir is not None:
+            print(f"  continue with: surfcross resume {result.run_dir} --more-steps N")
     for label, e in data.get("target_energies_eh", {}).items():
         print(f"  E({label}) = {e:.8f} Eh")
     if data.get("gap_ev") is not None:

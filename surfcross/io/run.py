@@ -35,7 +35,7 @@ from .report import render_report
 from .results import complete_result, write_json_atomic
 from .trajectory import TrajectoryWriter, trim_trajectory
 
-__all__ = ["RunDirectory", "default_run_name"]
+__all__ = ["RunDirectory", "default_run_name", "discard_unused"]
 
 log = logging.getLogger(__name__)
 
@@ -233,3 +233,24 @@ class RunDirectory:
             made += [out] if out else []
         return made, []
 
+
+
+def discard_unused(path: str | os.PathLike) -> bool:
+    """Remove ``path`` if it holds nothing but empty folders and PySCF logs.
+
+    Used when bad input stops a command after its run folder was made: no half-empty folder
+    is left behind to be mistaken for a run. Returns True when the folder was removed.
+    """
+    path = Path(path)
+    if not path.is_dir():
+        return False
+    for entry in path.iterdir():
+        if entry.is_dir() and not entry.is_symlink():
+            if not discard_unused(entry):
+                return False
+        elif entry.name != PYSCF_LOG_FILE:
+            return False
+    for entry in path.iterdir():
+        entry.unlink()
+    path.rmdir()
+    return True

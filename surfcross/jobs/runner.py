@@ -26,7 +26,7 @@ from ..engine.base import MethodSpec
 from ..errors import InputError, SurfcrossError
 from ..geometry import Geometry, read_xyz
 from ..io.results import write_json_atomic
-from ..io.run import RunDirectory
+from ..io.run import RunDirectory, discard_unused
 from ..states import parse_states
 from ..tasks import RunOptions, TaskResult, compute_states, find_crossing, relax
 from ..tasks.common import check_labels, prepare_method
@@ -319,6 +319,19 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
     log.info("job %s: %d task(s) in %s", job.title or job.source or "", len(job.tasks), folder.path)
     started = time.perf_counter()
     outcomes: list[TaskOutcome] = []
+    try:
+        _run_tasks(job, folder, outcomes, keep_going, progress, started)
+    except InputError:  # bad input found late (e.g. a basis PySCF does not know)
+        discard_unused(folder.path)
+        raise
+    result = JobResult(title=job.title, run_dir=folder.path, outcomes=tuple(outcomes),
+                       elapsed_s=time.perf_counter() - started)
+    write_json_atomic(folder.path / SUMMARY_FILE, result.to_dict())
+    return result
+
+
+def _run_tasks(job: Job, folder: RunDirectory, outcomes: list[TaskOutcome], keep_going: bool,
+               progress: bool, started: float) -> None:
     geometries: dict[str, Geometry] = {}
     stopped = False
     for task in job.tasks:
@@ -333,10 +346,6 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
         _write_summary(job, folder, outcomes, started)
         if not outcome.converged and not keep_going:
             stopped = True
-    result = JobResult(title=job.title, run_dir=folder.path, outcomes=tuple(outcomes),
-                       elapsed_s=time.perf_counter() - started)
-    write_json_atomic(folder.path / SUMMARY_FILE, result.to_dict())
-    return result
 
 
 def _blocked(task: Any, geometries: Mapping[str, Geometry]) -> str | None:
