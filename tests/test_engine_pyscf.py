@@ -262,6 +262,27 @@ def test_pyscf_output_goes_to_the_log_file_only(tmp_path, capfd):
     assert "converged SCF energy" in log.read_text()
 
 
+def test_engine_used_after_close_stays_silent(tmp_path):
+    # our rule as above; a separate process, because PySCF binds the terminal stream when it is
+    # imported and in-process capture does not see what it writes there
+    import subprocess
+    import sys
+
+    script = (
+        "from surfcross.engine.base import MethodSpec\n"
+        "from surfcross.engine.pyscf_response import PySCFResponseEngine\n"
+        "from surfcross.geometry import Geometry\n"
+        "g = Geometry.from_angstrom(['H', 'H'], [[0, 0, 0], [0, 0, 0.74]])\n"
+        f"e = PySCFResponseEngine(MethodSpec(method='cis', roots=1), log_path={str(tmp_path / 'x.log')!r})\n"
+        "e.evaluate(g, ['S1'])\n"
+        "e.close()\n"
+        "e.evaluate(g, ['S1'])\n")
+    run = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                         timeout=120)
+    assert run.returncode == 0, run.stderr
+    assert run.stdout == ""
+
+
 def _stretched_water(r_angstrom):
     half = np.radians(52.0)
     y, z = r_angstrom * np.sin(half), r_angstrom * np.cos(half)

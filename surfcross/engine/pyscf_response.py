@@ -278,4 +278,5 @@ class PySCFResponseEngine(EngineBase):
         if self._log is not None:
             self._log.close()
             self._log = None
+        self._verbose = 0  # without its log file PySCF would write to the terminal
 
