@@ -72,3 +72,14 @@ def test_imaginary_mode_sign():
     freqs, _ = harmonic_analysis(hess * sqm[:, None] * sqm[None, :], WATER.coords_bohr,
                                  WATER.masses_amu)
     assert (freqs < 0).sum() == 1
+
+
+def test_state_that_was_not_computed_is_an_input_error():
+    # a state beyond the computed roots must reach the user as a surfcross error, not a
+    # Python ValueError from a list lookup
+    from surfcross.analysis.curvature import check_curvature
+    from surfcross.engine.model import conical_model, model_geometry
+    from surfcross.errors import InputError
+
+    with pytest.raises(InputError, match="S5"):
+        check_curvature(conical_model(), model_geometry(), "S5")

@@ -164,6 +164,7 @@ def check_curvature(engine: Engine, geometry: Geometry, state: StateLabel | str,
     """
     label = parse_state(state)
     centre = engine.states(geometry)
+    centre.state(label)  # InputError naming the computed states when ``state`` is not among them
     roots: list[str] = []
     grad = _tracked_gradient(engine, centre, label, roots)
     log.info("curvature check of %s: %d gradient evaluations", label, 6 * geometry.natom)
