@@ -97,6 +97,29 @@ def test_engine_overlaps_match_pyscf_fci_between_geometries(engine):
     np.testing.assert_allclose(got, ref, atol=1e-10)
 
 
+def test_triplet_overlaps_match_pyscf_fci_between_geometries(engine):
+    # M_S = 0 triplets (beta amplitudes = -alpha): the engine's amplitudes written as FCI
+    # vectors with PySCF's unrestricted CISD-to-FCI conversion, overlaps from
+    # pyscf.fci.addons.overlap; also checks that the vectors are normalized (CIS norm)
+    a, b = engine.states(water(104.5)), engine.states(water(110.0, R_OH * 1.03))
+    got = engine.overlaps(a, b)["T"]
+    wa, wb = a.wavefunction.manifolds["T"], b.wavefunction.manifolds["T"]
+    norb = 7
+    zeros2 = np.zeros((5, 5, 2, 2))
+
+    def vector(x):
+        x = np.asarray(x)
+        v = ci.ucisd.amplitudes_to_cisdvec(0.0, (x, -x), (zeros2, zeros2, zeros2))
+        return ci.ucisd.to_fcivec(v, norb, (5, 5))
+
+    smo = mo_overlap(wa.reference.mo_coeff, cross_ao_overlap(a.wavefunction, b.wavefunction),
+                     wb.reference.mo_coeff)
+    ref = np.array([[fci.addons.overlap(vector(x), vector(y), norb, (5, 5), s=smo)
+                     for y in wb.amplitudes] for x in wa.amplitudes])
+    assert all(abs(np.linalg.norm(vector(x)) - 1.0) < 1e-10 for x in wa.amplitudes)
+    np.testing.assert_allclose(got, ref, atol=1e-10)
+
+
 def test_followed_states_keep_their_irreps_through_a_bend(engine):
     # symmetric bend 104.5 -> 135 degrees: the A2 state (S2 at the start) and the A1 state
     # (S3) swap adiabatic order (PySCF CIS/STO-3G; labels from PySCF's symmetry tables).
