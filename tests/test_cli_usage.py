@@ -208,3 +208,28 @@ def test_readme_python_snippet_runs(tmp_path):
                          text=True, env=ENV, timeout=300)
     assert out.returncode == 0, out.stderr[-2000:]
     assert " True " in out.stdout  # the S1/T1 crossing converged
+
+
+@needs_exe
+def test_seam_scan_of_a_same_spin_pair(water_dir):
+    # before: each seam point (a penalty crossing of S2/S3) crashed in the characterization;
+    # water S2/S3 CIS/STO-3G cross for bond angles around 100-120 degrees (our own scenario)
+    out = _run(["scan", "water.xyz", "--coordinate", "2,1,3", "--from", "100", "--to", "120",
+                "--points", "2", "--along-seam", "S2,S3", "--method", "cis", "--out", "seam"],
+               water_dir)
+    assert out.returncode == 0, out.stdout + out.stderr
+    assert "not characterized" not in out.stdout
+    data = json.loads((water_dir / "seam" / "result.json").read_text())
+    assert data["converged"]
+
+
+@needs_exe
+def test_job_stopped_at_a_step_limit_says_how_to_continue(water_dir):
+    (water_dir / "job.toml").write_text(
+        'output = "j"\n[molecule]\nfile = "water.xyz"\n[method]\nmethod = "cis"\n'
+        '[[task]]\nname = "m"\nkind = "relax"\nstate = "S0"\nmax_iterations = 1\n'
+        '[[task]]\nname = "v"\nkind = "states"\nfrom = "m"\n')
+    out = _run(["run", "job.toml"], water_dir)
+    assert out.returncode == 1
+    assert "surfcross resume" in out.stdout and "--more-steps" in out.stdout
+    assert "(it does not run v)" in out.stdout

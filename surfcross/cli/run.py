@@ -55,6 +55,11 @@ def job_summary_lines(result: JobResult) -> list[str]:
     lines = [f"job {result.title or result.run_dir.name}: {done} of {len(result.outcomes)} task(s) "
              f"converged/finished in {result.elapsed_s:.0f} s; folder {result.run_dir}"]
     lines += [_task_line(o) for o in result.outcomes]
+    for o in result.outcomes:
+        if o.status == "step limit reached" and o.run_dir is not None:
+            later = [x.name for x in result.outcomes if x.status == "not run"]
+            lines.append(f"  continue {o.name} with: surfcross resume {o.run_dir} --more-steps N"
+                         + (f" (it does not run {', '.join(later)})" if later else ""))
     seen: list[str] = []
     for o in result.outcomes:
         new = [w for w in (o.result.warnings if o.result is not None else ()) if w not in seen]

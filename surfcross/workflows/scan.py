@@ -96,7 +96,9 @@ def _handed_on(engine: Any, previous: Any, labels: Sequence[StateLabel],
 def _point(mode: str, guess: Geometry, labels: list[StateLabel], spec: MethodSpec,
            options: RunOptions, run_dir: Any, progress: bool, engine: Any) -> TaskResult:
     if mode == "seam":
-        return find_crossing(guess, labels, spec, search=SEAM_SEARCH, options=options,
+        # the penalty search keeps no branching plane to characterize a seam point with
+        return find_crossing(guess, labels, spec, search=SEAM_SEARCH,
+                             options=options.with_updates(characterize=False),
                              run_dir=run_dir, progress=progress, engine=engine)
     return relax(guess, labels[0], spec, options=options, run_dir=run_dir, progress=progress,
                  engine=engine)
