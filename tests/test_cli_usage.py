@@ -233,3 +233,27 @@ def test_job_stopped_at_a_step_limit_says_how_to_continue(water_dir):
     assert out.returncode == 1
     assert "surfcross resume" in out.stdout and "--more-steps" in out.stdout
     assert "(it does not run v)" in out.stdout
+
+
+def test_progress_line_pairs_each_state_with_its_own_root():
+    from surfcross.tracking.records import TrackingRecord
+
+    # a singlet cannot sit on a triplet root (common practice: spin is conserved)
+    tracking = TrackingRecord(targets=("S1", "T1"), roots=("T1", "S1"),
+                              info={"assignment": {"S1": "S1", "T1": "T1"}})
+
+    class Value:
+        energies_eh = {"T1": -1.1, "S1": -1.0}
+        test_gradient = np.zeros((1, 3))
+        gap_eh = 0.1
+        info = {"roots": ["T1", "S1"]}
+
+    Value.tracking = tracking
+
+    class Record:
+        iteration, accepted, converged, trust_radius, elapsed_s = 0, True, False, 0.1, 0.0
+        step_length, message, max_force = 0.0, "start", 0.0
+        value = Value()
+
+    line = step_line(Record())
+    assert "[following S1 on root S1, T1 on root T1]" in line

@@ -85,7 +85,14 @@ def step_line(record: Any, previous_roots: Iterable[str] = ()) -> str:
     if roots and roots != previous:
         tracking = getattr(value, "tracking", None)
         targets = tuple(getattr(tracking, "targets", ()) or value.energies_eh) or roots
-        follow = ", ".join(f"{t} on root {r}" for t, r in zip(targets, roots))
+        # a pair lists its roots by energy: use the tracker's target -> root assignment
+        assignment = dict((getattr(tracking, "info", None) or {}).get("assignment", {}))
+        if assignment:
+            follow = ", ".join(f"{t} on root {r}" for t, r in assignment.items())
+        elif len(targets) == 2 and len(roots) == 2:
+            follow = f"{targets[0]}/{targets[1]} on roots {roots[0]} (lower), {roots[1]} (upper)"
+        else:
+            follow = ", ".join(f"{t} on root {r}" for t, r in zip(targets, roots))
         parts.append(f"[following {follow}]" if not previous else f"[root change: {follow}]")
     if record.converged:
         parts.append("[converged]")
