@@ -204,3 +204,16 @@ def test_reference_with_a_triplet_is_not_called_a_wrong_topology():
     assert not any("wrong dimension" in t or "instead of a conical" in t for t in texts)
     assert any("instabilit" in t for t in texts)  # the reference near a triplet instability
     assert any("higher-level" in t for t in texts)
+
+
+def test_casscf_pair_gets_the_casscf_limits_not_the_response_ones():
+    # the method notes (section 9 and the CASSCF remedies): SA-CASSCF is multireference but
+    # lacks dynamic correlation; telling its users they used a single-reference response
+    # method would be wrong
+    class CasscfLike:
+        spec = MethodSpec(method="casscf", active_space=(2, 2), roots=1)
+        has_couplings = True
+
+    texts = pair_warnings(CasscfLike(), parse_states("S0,S1"))
+    assert not any("response" in t for t in texts)
+    assert any("dynamic correlation" in t and "higher-level" in t for t in texts)

@@ -38,6 +38,7 @@ __all__ = [
     "remove_external",
     "pair_warnings",
     "LIMITS_NOTE",
+    "CASSCF_LIMITS_NOTE",
 ]
 
 log = logging.getLogger(__name__)
@@ -49,6 +50,11 @@ GAP_TOLERANCES = {"default": 1e-3, "tight": 1e-4}
 LIMITS_NOTE = ("Crossing points from single-reference response methods (CIS/TDA/TDDFT) are "
                "approximations: check the geometry and energies with a higher-level method "
                "(e.g. multireference) before relying on them.")
+
+CASSCF_LIMITS_NOTE = ("Crossing points from state-averaged CASSCF lack dynamic correlation and "
+                      "depend on the active space: check the geometry and energies with a "
+                      "higher-level method (e.g. multistate perturbation theory or MRCI) before "
+                      "relying on them.")
 
 _RESPONSE_METHODS = ("cis", "tda", "tdhf", "tddft")
 
@@ -153,7 +159,7 @@ def pair_warnings(engine: Engine, targets: Sequence[StateLabel]) -> tuple[str, .
             "the wrong topology and a questionable energy; use state-averaged CASSCF or a "
             "spin-flip method for intersections with the ground state.")
     if not model:
-        out.append(LIMITS_NOTE)
+        out.append(CASSCF_LIMITS_NOTE if method == "casscf" else LIMITS_NOTE)
     return tuple(out)
 
 
