@@ -257,3 +257,15 @@ def test_progress_line_pairs_each_state_with_its_own_root():
 
     line = step_line(Record())
     assert "[following S1 on root S1, T1 on root T1]" in line
+
+
+def test_resume_of_a_job_folder_names_the_task_folders(tmp_path):
+    from surfcross.errors import CheckpointError
+
+    for name in ("a", "b"):
+        (tmp_path / "job" / name).mkdir(parents=True)
+        (tmp_path / "job" / name / "checkpoint.h5").write_bytes(b"")
+    (tmp_path / "job" / "summary.json").write_text("{}")
+    with pytest.raises(CheckpointError, match="resume one of them") as info:
+        sc.resume(tmp_path / "job")
+    assert str(tmp_path / "job" / "a") in str(info.value)

@@ -67,6 +67,11 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
 
 def _check_unfinished(path: Path) -> None:
     """A run with result.json may only be continued when it stopped at its step limit."""
+    if not (path / "checkpoint.h5").exists():
+        inner = sorted(p.parent.name for p in path.glob("*/checkpoint.h5"))
+        if inner:  # a job or workflow folder: its optimizations sit one level down
+            raise CheckpointError(f"{path} holds several runs; resume one of them: "
+                                  + ", ".join(str(path / name) for name in inner))
     result = path / "result.json"
     if not result.exists():
         return
