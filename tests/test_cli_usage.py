@@ -269,3 +269,14 @@ def test_resume_of_a_job_folder_names_the_task_folders(tmp_path):
     with pytest.raises(CheckpointError, match="resume one of them") as info:
         sc.resume(tmp_path / "job")
     assert str(tmp_path / "job" / "a") in str(info.value)
+
+
+@needs_exe
+@pytest.mark.parametrize("args, expected", [
+    (["--hold", "1,2,3,1"], "names an atom twice in '1,2,3,1'"),
+    (["--freeze", "2,2"], "names an atom twice"),
+    (["--hold", "1,2=-1"], "bond length must be positive"),
+])
+def test_constraint_input_errors_speak_in_the_users_numbering(water_dir, args, expected):
+    out = _run(["relax", "water.xyz", "--state", "S0", *args], water_dir)
+    assert out.returncode == 2 and expected in out.stderr

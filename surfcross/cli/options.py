@@ -144,6 +144,8 @@ def _atoms(text: str, what: str) -> tuple[int, ...]:
         raise InputError(f"{what} expects 1-based atom numbers separated by commas, got {text!r}") from None
     if not atoms or min(atoms) < 0:
         raise InputError(f"{what} expects atom numbers >= 1, got {text!r}")
+    if len(set(atoms)) != len(atoms):
+        raise InputError(f"{what} names an atom twice in {text!r}: give distinct atom numbers")
     return atoms
 
 
@@ -163,6 +165,8 @@ def _hold(text: str):
         except ValueError:
             raise InputError(f"--hold value must be a number, got {value_text!r}") from None
         if kind == "bond":
+            if not target > 0:
+                raise InputError(f"--hold bond length must be positive (angstrom), got {target:g}")
             target *= ANGSTROM_IN_BOHR
     return Constraint(kind, atoms, target)
 
