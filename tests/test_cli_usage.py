@@ -280,3 +280,19 @@ def test_resume_of_a_job_folder_names_the_task_folders(tmp_path):
 def test_constraint_input_errors_speak_in_the_users_numbering(water_dir, args, expected):
     out = _run(["relax", "water.xyz", "--state", "S0", *args], water_dir)
     assert out.returncode == 2 and expected in out.stderr
+
+
+# pyramidal formaldehyde near its CIS/STO-3G S1 minimum, angstrom (our own scenario)
+H2CO_S1 = ("4\nformaldehyde\nC -0.1193 0.0 -0.0609\nO 0.0339 0.0 1.2390\n"
+           "H 0.1027 0.9292 -0.5742\nH 0.1027 -0.9292 -0.5742\n")
+
+
+@needs_exe
+def test_ground_state_crossing_warns_once_about_the_reference(tmp_path):
+    # the reference/response caveat (common practice for linear response) is stated, once
+    (tmp_path / "h2co.xyz").write_text(H2CO_S1)
+    out = _run(["cross", "h2co.xyz", "--states", "S0,S1", "--method", "cis", "--out", "x"],
+               tmp_path)
+    assert out.returncode in (0, 1), out.stderr
+    data = json.loads((tmp_path / "x" / "result.json").read_text())
+    assert sum("reference state" in w for w in data["warnings"]) == 1

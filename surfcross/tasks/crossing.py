@@ -76,7 +76,10 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                           gap_tolerance_eh=settings.gap_tol_eh)
     result = run_optimization(optimizer, geometry, run_dir, spec_dict, observers=observers,
                               progress=progress, resume_state=resume_state)
-    warnings = method_warnings(spec, labels) + list(getattr(objective, "warnings", ()))
+    searched = list(getattr(objective, "warnings", ()))
+    warnings = [w for w in method_warnings(spec, labels)  # one reference-state caveat is enough
+                if not ("reference state" in w and any("reference state" in o for o in searched))]
+    warnings += searched
     branching = None
     data: dict[str, Any] = {}
     if getattr(objective, "failed", False) and result.converged:
