@@ -296,3 +296,22 @@ def test_ground_state_crossing_warns_once_about_the_reference(tmp_path):
     assert out.returncode in (0, 1), out.stderr
     data = json.loads((tmp_path / "x" / "result.json").read_text())
     assert sum("reference state" in w for w in data["warnings"]) == 1
+
+
+@needs_exe
+def test_path_between_different_molecules_leaves_no_folder(water_dir):
+    (water_dir / "h2co.xyz").write_text(H2CO_S1)
+    out = _run(["path", "water.xyz", "h2co.xyz"], water_dir)
+    assert out.returncode == 2 and "same atoms" in out.stderr
+    assert sorted(p.name for p in water_dir.iterdir()) == ["h2co.xyz", "water.xyz"]
+
+
+@needs_exe
+def test_rigid_scan_prints_the_energies(water_dir):
+    # before: a rigid scan printed only the coordinate values, no energy at all
+    out = _run(["scan", "water.xyz", "--coordinate", "1,2", "--from", "0.9", "--to", "1.1",
+                "--points", "2", "--rigid", "--out", "s"], water_dir)
+    assert out.returncode == 0, out.stderr
+    data = json.loads((water_dir / "s" / "result.json").read_text())
+    s1 = data["profile"]["connected_ev"]["S1"]
+    assert f"{s1[1]:8.3f}" in out.stdout and "S0" in out.stdout.split("connected curves")[1]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 from ..tasks.common import LIMITS_NOTE
 
@@ -45,7 +46,10 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("a pathway needs at least two geometries")
     geometries = [geometry_from_args(args, path) for path in args.geometries]
     show = [s for s in (args.show or "").split(",") if s.strip()]
+    new = args.out is None or not Path(args.out).exists()
     run_dir = RunDirectory.create(args.out, input_name=args.geometries[0], task="path")
+    if new:  # removed again if bad input stops the command before anything is written
+        args.created_run_dir = run_dir.path
     result = pathway(geometries, method_from_args(args), images=args.images,
                      interpolation="cartesian" if args.cartesian else "internal",
                      mass_weighted=args.mass_weighted, show=show, run_dir=run_dir)

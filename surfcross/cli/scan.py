@@ -108,6 +108,13 @@ def _print(result) -> None:
         if gap is not None:
             line += f"  gap {gap[k]:.2e} eV"
         print(line)
+    connected = profile.get("connected_ev")
+    if followed is None and gap is None and connected:  # rigid: every state at every point
+        names = list(connected)
+        print(f"  energies / eV relative to {profile['reference']} (connected curves):")
+        print("  " + f"{coord['unit']:>10}" + "".join(f"  {n:>8}" for n in names))
+        for k, x in enumerate(profile["x"]):
+            print("  " + f"{x:10.4f}" + "".join(f"  {connected[n][k]:8.3f}" for n in names))
     if "maximum" in profile:
         print(f"  highest at {profile['maximum']['value']:g}, lowest at "
               f"{profile['minimum']['value']:g} {coord['unit']} "
