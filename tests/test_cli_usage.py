@@ -315,3 +315,20 @@ def test_rigid_scan_prints_the_energies(water_dir):
     data = json.loads((water_dir / "s" / "result.json").read_text())
     s1 = data["profile"]["connected_ev"]["S1"]
     assert f"{s1[1]:8.3f}" in out.stdout and "S0" in out.stdout.split("connected curves")[1]
+
+
+@needs_exe
+def test_emission_from_a_state_that_is_not_the_lowest_warns(tmp_path):
+    # formaldehyde, CIS/STO-3G: the followed T1 ends as root T2 at its minimum (our own
+    # scenario); Kasha's rule (emission from the lowest state of a multiplicity; common
+    # practice) makes that emission doubtful, and the run says so
+    (tmp_path / "h2co.xyz").write_text(  # both H 0.06 angstrom out of plane
+        "4\nformaldehyde\nC 0 0 0\nO 0 0 1.205\nH 0.06 0.9428641 -0.5876464\n"
+        "H 0.06 -0.9428641 -0.5876464\n")
+    out = _run(["emission", "h2co.xyz", "--state", "T1", "--method", "cis", "--out", "e"],
+               tmp_path)
+    assert out.returncode == 0, out.stderr
+    data = json.loads((tmp_path / "e" / "result.json").read_text())
+    root = parse_states(data["emission_root"], count=1)[0]
+    kasha = any("Kasha" in w for w in data["warnings"])
+    assert root.index > 1 and kasha

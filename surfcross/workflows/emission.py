@@ -211,6 +211,12 @@ def _numbers(engine: Any, fc_eval: Evaluation, fc_root: StateLabel, em_eval: Eva
         notes.append(f"at the excited-state end point {em_root} lies at or below {ref}: the "
                      "state reached a crossing with the ground state (a funnel), so there is no "
                      "emission from a minimum; linear response is unreliable there")
+    if em_root.index > 1:  # 0 for the reference, 1 for the lowest excited state of a manifold
+        lowest = StateLabel(em_root.manifold, 1)
+        notes.append(f"at the excited-state minimum the followed state is root {em_root}: a lower "
+                     f"state of the same spin ({lowest}) lies below it, so by Kasha's rule the "
+                     f"molecule is likely to convert to {lowest} before it emits; compare with "
+                     f"the emission of {lowest}")
     if em_eval.energy(ref) < e_ground_min - 1e-6:
         notes.append(f"{ref} at the excited-state minimum lies below the ground-state minimum "
                      "used: the ground-state minimum is not the lowest; relax the ground state "
