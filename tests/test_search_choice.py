@@ -30,3 +30,17 @@ def test_auto_choice(states, method, expected):
 
 def test_explicit_choice_is_kept():
     assert choose_search(("S0", "S1"), "projected", CIS) == "projected"
+
+
+def test_spin_search_on_a_reference_pair_gives_no_contradicting_advice():
+    # the auto choice picks the one-dimensional search for S0/S1 with CIS; the objective must
+    # not then advise the projected search (it did before)
+    from surfcross.objectives.searches import make_crossing_objective
+
+    class _Engine:
+        spec = CIS
+        has_couplings = False
+
+    objective = make_crossing_objective(_Engine(), ("S0", "S1"), "auto")
+    assert objective.search == "spin"
+    assert not any("use the projected search" in w for w in objective.warnings)

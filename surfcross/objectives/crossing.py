@@ -401,9 +401,19 @@ def merit_weight(pair: PairEvaluation, fixed: float | None) -> float:
 
 
 def check_merit_weight(objective: "CrossingObjectiveBase", pair: PairEvaluation,
-                       mu: float) -> None:
-    """Warn once when the local multiplier exceeds the merit weight (steps may be refused)."""
+                       mu: float) -> float:
+    """The merit weight to use from now on: ``mu``, or twice the local multiplier when that
+    has grown beyond ``mu``.
+
+    The merit Ebar + mu dE has its minimum on the seam only while mu exceeds the Lagrange
+    multiplier |gbar.x1|/|x1|^2; below it, every step toward the seam raises the merit, gets
+    rejected and the search stalls at the smallest trust radius. Raising mu at an accepted
+    point only makes the next acceptance test stricter by (mu_new - mu_old) dE, never looser.
+    """
     n1 = float(np.linalg.norm(pair.x1))
-    if n1 > 0 and abs(float(pair.gbar @ pair.x1)) / n1**2 > mu:
-        objective.warn(f"the crossing's Lagrange multiplier exceeds the merit weight {mu:.3g}; "
-                       "if steps keep being rejected, set a larger merit_gap_weight")
+    multiplier = abs(float(pair.gbar @ pair.x1)) / n1**2 if n1 > 0 else 0.0
+    if multiplier <= mu:
+        return mu
+    new = 2.0 * multiplier
+    log.info("merit weight raised from %.3g to %.3g (the crossing's multiplier grew)", mu, new)
+    return new

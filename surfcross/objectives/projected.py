@@ -174,7 +174,7 @@ class ProjectedObjective(CrossingObjectiveBase):
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev, self.y_prev = payload
-        check_merit_weight(self, pair, self.mu)
+        self.mu = check_merit_weight(self, pair, self.mu)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()

@@ -67,7 +67,11 @@ class SpinCrossingObjective(CrossingObjectiveBase):
                  settings: SpinSettings | None = None, **kwargs: Any) -> None:
         settings = settings or SpinSettings()
         super().__init__(engine, states, settings, want_coupling=False, **kwargs)
-        if self.pairs.same_manifold:
+        reference_pair = any(t.is_reference for t in self.targets) and \
+            getattr(getattr(engine, "spec", None), "method", "casscf") != "casscf"
+        if self.pairs.same_manifold and not reference_pair:
+            # (a response method's reference and a response state do not couple: for them
+            # the one-dimensional search is the right one, see searches.choose_search)
             self.warn(f"{self.targets[0]} and {self.targets[1]} have the same spin: the spin "
                       "search treats their crossing as one-dimensional and ignores the "
                       "coupling direction; unless their spatial symmetries differ, use the "
@@ -92,7 +96,7 @@ class SpinCrossingObjective(CrossingObjectiveBase):
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev = payload
-        check_merit_weight(self, pair, self.mu)
+        self.mu = check_merit_weight(self, pair, self.mu)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()
