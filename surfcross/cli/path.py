@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..tasks.common import LIMITS_NOTE
+from ..analysis.vertical import limits_note
 
 from ..io.run import RunDirectory
 from ..workflows import pathway
@@ -66,6 +66,6 @@ def run(args: argparse.Namespace) -> int:
               + ", ".join(result.data["character_changes"]))
     for w in result.warnings:
         print(f"  warning: {w}")
-    print(f"  note: {LIMITS_NOTE}")
+    print(f"  note: {limits_note(result.method)}")
     print(f"  run directory: {result.run_dir}")
     return 0

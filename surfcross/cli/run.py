@@ -6,6 +6,7 @@ import argparse
 
 from ..jobs import read_job
 from ..jobs.runner import JobResult, TaskOutcome, run_job
+from ..analysis.vertical import limits_note
 from ..tasks.common import LIMITS_NOTE
 from ..units import HARTREE_IN_EV
 
@@ -49,8 +50,8 @@ def _task_line(o: TaskOutcome) -> str:
     return head + ("; " + ", ".join(parts) if parts else "") + where
 
 
-def job_summary_lines(result: JobResult) -> list[str]:
-    """The end-of-job summary (one line per task)."""
+def job_summary_lines(result: JobResult, method=None) -> list[str]:
+    """The end-of-job summary (one line per task), with the limits of ``method``."""
     done = sum(o.converged for o in result.outcomes)
     lines = [f"job {result.title or result.run_dir.name}: {done} of {len(result.outcomes)} task(s) "
              f"converged/finished in {result.elapsed_s:.0f} s; folder {result.run_dir}"]
@@ -68,12 +69,12 @@ def job_summary_lines(result: JobResult) -> list[str]:
         if len(new) > MAX_WARNINGS:
             lines.append(f"  ... {len(new) - MAX_WARNINGS} more warning(s) of {o.name} in "
                          f"{o.run_dir.name}/result.json")
-    lines.append(f"  note: {LIMITS_NOTE}")
+    lines.append(f"  note: {limits_note(method) if method is not None else LIMITS_NOTE}")
     return lines
 
 
 def run(args: argparse.Namespace) -> int:
     job = read_job(args.job)
     result = run_job(job, out=args.out, keep_going=args.keep_going, progress=not args.quiet)
-    print("\n".join(job_summary_lines(result)))
+    print("\n".join(job_summary_lines(result, job.method)))
     return 0 if result.converged else 1

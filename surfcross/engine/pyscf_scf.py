@@ -157,7 +157,8 @@ def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
     raise SCFNotConvergedError(
         f"the {kind} reference did not converge ({total} cycles: DIIS, level shift + damping, "
         "second-order solver). Check charge and spin, start from a more reasonable geometry, "
-        "try an unrestricted reference or a smaller/larger basis")
+        + ("" if unrestricted else "try an unrestricted reference ")
+        + "or try another basis")
 
 
 def stabilize(mf: Any, spec: MethodSpec, unrestricted: bool, max_tries: int = 3) -> tuple[Any, int]:
