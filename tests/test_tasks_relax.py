@@ -87,3 +87,11 @@ def test_formaldehyde_s1_is_pyramidal_with_longer_co():
     improper = abs(s1.geometry.dihedral(1, 0, 2, 3))
     assert improper < 170.0
     assert abs(abs(s0.geometry.dihedral(1, 0, 2, 3)) - 180.0) < 2.0
+
+
+def test_freezing_every_atom_is_refused():
+    from surfcross import Constraint, InputError
+
+    frozen = tuple(Constraint("atom", (i,)) for i in range(3))
+    with pytest.raises(InputError, match="every atom is frozen"):
+        relax(_water(), "S0", HF, options=RunOptions(constraints=frozen), progress=False)

@@ -41,6 +41,9 @@ def build_coordinates(geometry: Geometry, options: RunOptions, *, composed: bool
     """The coordinate system a task asked for ('auto' chooses, see RunOptions)."""
     for c in options.constraints:
         c.check(geometry.natom)
+    if len(set(_frozen_atoms(options.constraints))) >= geometry.natom:
+        raise InputError("every atom is frozen: nothing is left to optimize (unfreeze at least "
+                         "one atom)")
     kind = options.coordinates
     internal_constraints = [c for c in options.constraints if c.kind != "atom"]
     if kind == "auto":
