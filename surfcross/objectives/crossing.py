@@ -32,6 +32,7 @@ from ..geometry import Geometry
 from ..states import StateLabel, parse_states
 
 __all__ = [
+    "MeritWeighted",
     "GAP_TOLERANCES",
     "PairEvaluation",
     "PairEvaluator",
@@ -417,3 +418,28 @@ def check_merit_weight(objective: "CrossingObjectiveBase", pair: PairEvaluation,
     new = 2.0 * multiplier
     log.info("merit weight raised from %.3g to %.3g (the crossing's multiplier grew)", mu, new)
     return new
+
+
+class MeritWeighted:
+    """Merit-weight bookkeeping shared by the composed searches (projected and spin).
+
+    The weight mu of the acceptance merit Ebar + mu dE is sized at the first evaluation
+    (:func:`merit_weight`), raised at accepted points when the crossing's multiplier outgrows
+    it (:func:`check_merit_weight`), and saved/restored with the objective's state.
+    """
+
+    mu: float | None = None
+
+    def merit_for(self, pair: PairEvaluation) -> float:
+        if self.mu is None:
+            self.mu = merit_weight(pair, None)
+        return self.mu
+
+    def update_merit(self, pair: PairEvaluation) -> None:
+        self.mu = check_merit_weight(self, pair, self.merit_for(pair))
+
+    def merit_state(self) -> dict[str, Any]:
+        return {"merit_gap_weight": self.mu}
+
+    def load_merit_state(self, state: Mapping[str, Any]) -> None:
+        self.mu = state.get("merit_gap_weight", self.mu)

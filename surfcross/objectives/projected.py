@@ -37,7 +37,7 @@ from ..engine.base import Engine
 from ..errors import InputError
 from ..states import StateLabel
 from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation,
-                       check_merit_weight, merit_weight, remove_external, unit)
+                       MeritWeighted, remove_external, unit)
 
 __all__ = ["ProjectedSettings", "ProjectedObjective", "update_plane_vector", "initial_plane_vector"]
 
@@ -112,7 +112,7 @@ def update_plane_vector(x_prev: np.ndarray, y_prev: np.ndarray, xhat: np.ndarray
     return -y if y @ y_prev < 0 else y
 
 
-class ProjectedObjective(CrossingObjectiveBase):
+class ProjectedObjective(MeritWeighted, CrossingObjectiveBase):
     """Composed gradient 2 dE x-hat + P gbar (see the module docstring)."""
 
     name = "crossing-projected"
@@ -162,30 +162,28 @@ class ProjectedObjective(CrossingObjectiveBase):
 
     def _compose(self, pair: PairEvaluation):
         xhat, yhat, n1, source = self.plane_vectors(pair)
-        if self.mu is None:
-            self.mu = merit_weight(pair, None)
         gbar = pair.gbar
         projected = gbar - (gbar @ xhat) * xhat - (gbar @ yhat) * yhat
         working = 2.0 * pair.gap * xhat + projected
         value = self.composed_value(pair, working, projected, [xhat, yhat],
-                                    [2.0 * n1, self.settings.plane_curvature], self.mu,
+                                    [2.0 * n1, self.settings.plane_curvature], self.merit_for(pair),
                                     plane=source)
         return value, (xhat, yhat)
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev, self.y_prev = payload
-        self.mu = check_merit_weight(self, pair, self.mu)
+        self.update_merit(pair)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()
-        state.update(plane=self.plane, merit_gap_weight=self.mu,
+        state.update(plane=self.plane, **self.merit_state(),
                      x_prev=None if self.x_prev is None else self.x_prev.tolist(),
                      y_prev=None if self.y_prev is None else self.y_prev.tolist())
         return state
 
     def load_state_dict(self, state: Mapping[str, Any]) -> None:
         super().load_state_dict(state)
-        self.mu = state.get("merit_gap_weight", self.mu)
+        self.load_merit_state(state)
         for key in ("x_prev", "y_prev"):
             if state.get(key) is not None:
                 setattr(self, key, np.asarray(state[key], float))

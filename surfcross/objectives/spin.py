@@ -29,7 +29,7 @@ from ..engine.base import Engine
 from ..errors import InputError
 from ..states import StateLabel
 from .crossing import (GAP_TOLERANCES, CrossingObjectiveBase, PairEvaluation,
-                       check_merit_weight, merit_weight, unit)
+                       MeritWeighted, unit)
 
 __all__ = ["SpinSettings", "SpinCrossingObjective"]
 
@@ -57,7 +57,7 @@ class SpinSettings:
             raise InputError("the gap tolerance must be positive")
 
 
-class SpinCrossingObjective(CrossingObjectiveBase):
+class SpinCrossingObjective(MeritWeighted, CrossingObjectiveBase):
     """Effective gradient dE x-hat + (1 - x-hat x-hat^T) gbar (see the module docstring)."""
 
     name = "crossing-spin"
@@ -86,23 +86,22 @@ class SpinCrossingObjective(CrossingObjectiveBase):
                 raise InputError("the two states have identical gradients at the start: "
                                  "displace the geometry slightly and retry")
             xhat = self.x_prev
-        if self.mu is None:
-            self.mu = merit_weight(pair, None)
         gbar = pair.gbar
         projected = gbar - (gbar @ xhat) * xhat
         working = pair.gap * xhat + projected
-        value = self.composed_value(pair, working, projected, [xhat], [n1], self.mu)
+        value = self.composed_value(pair, working, projected, [xhat], [n1],
+                                     self.merit_for(pair))
         return value, xhat
 
     def _commit(self, pair: PairEvaluation, payload: Any) -> None:
         self.x_prev = payload
-        self.mu = check_merit_weight(self, pair, self.mu)
+        self.update_merit(pair)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()
-        state.update(merit_gap_weight=self.mu)
+        state.update(self.merit_state())
         return state
 
     def load_state_dict(self, state: Mapping[str, Any]) -> None:
         super().load_state_dict(state)
-        self.mu = state.get("merit_gap_weight", self.mu)
+        self.load_merit_state(state)
