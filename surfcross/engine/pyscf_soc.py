@@ -20,8 +20,10 @@ antisymmetric; atomic units, alpha the fine-structure constant from scipy.consta
   Coulomb term and the exchange terms of spin-same-orbit plus spin-other-orbit (the factor 3
   = 1 + 2). Between the reference and a single excitation this is the exact Breit-Pauli
   matrix element; between two excited states it drops the residual two-electron part (the
-  approximation of the method). More accurate than effective charges, any element, one pass
-  over PySCF's two-electron spin-orbit integrals (``int2e_p1vxp1``).
+  approximation of the method). More accurate than effective charges, any element. The
+  two-electron integrals are PySCF's ``int2e_p1vxp1`` (one exact pass, cost ~N^4) or, by
+  default, their density-fitted form from ``int3c2e_pvxp1`` with the def2-universal-jkfit
+  auxiliary basis (differences about 0.1 % of the couplings).
 * ``'bare-nuclear'``: the one-electron term with the full nuclear charges and no two-electron
   part. It overestimates couplings (by about 30-50 % for first-row atoms); it is here to
   compare with one-electron relativistic Hamiltonians (PySCF's X2C), not for production.
@@ -92,21 +94,58 @@ def _nuclear_term(mol: Any, charges: np.ndarray) -> np.ndarray:
     return 0.5 * ALPHA ** 2 * total
 
 
-def _mean_field_term(mol: Any, density: np.ndarray) -> np.ndarray:
-    from pyscf.scf import jk
+#: auxiliary basis of the density-fitted mean field (PySCF's name for def2-universal-jkfit)
+FITTING_BASIS = "weigend"
 
+
+def _mean_field_term(mol: Any, density: np.ndarray, fitted: bool) -> np.ndarray:
+    """-(alpha^2/4) sum D [2 G(mu nu|k l) - 3 G(mu l|k nu) - 3 G(k nu|mu l)], G = -I.
+
+    I = PySCF's int2e_p1vxp1 is antisymmetric in (mu nu) and symmetric in (k l), so the
+    second exchange term is minus the transpose of the first: a = (alpha^2/4)(2J - 3K + 3K^T).
+    """
     d = np.asarray(density, float)
-    coulomb, exch1, exch2 = jk.get_jk(
-        mol, [d, d, d], scripts=["ijkl,kl->ij", "ijkl,jk->il", "ijkl,li->kj"],
-        intor="int2e_p1vxp1", comp=3, aosym="s1")
-    return 0.25 * ALPHA ** 2 * (2.0 * coulomb - 3.0 * exch1 - 3.0 * exch2)
+    if fitted:
+        coulomb, exchange = _fitted_terms(mol, d)
+    else:
+        from pyscf.scf import jk
+
+        # symmetric density: 'lk' is 'kl'; the a4ij kernels use the (mu nu) antisymmetry
+        coulomb, exchange = jk.get_jk(mol, [d, d], scripts=["ijkl,lk->ij", "ijkl,jk->il"],
+                                      intor="int2e_p1vxp1", comp=3, aosym="a4ij")
+    exchange = np.asarray(exchange)
+    return 0.25 * ALPHA ** 2 * (2.0 * np.asarray(coulomb) - 3.0 * exchange
+                                + 3.0 * exchange.transpose(0, 2, 1))
 
 
-def spin_orbit_ao(mol: Any, operator: str, density: np.ndarray | None = None) -> np.ndarray:
+def _fitted_terms(mol: Any, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Coulomb J and exchange K of the spin-orbit mean field with density fitting:
+    (mu nu|k l)' = sum_PQ (mu nu|P)' (P|Q)^-1 (Q|k l)."""
+    import scipy.linalg
+    from pyscf import df
+
+    aux = df.addons.make_auxmol(mol, FITTING_BASIS)
+    so3 = df.incore.aux_e2(mol, aux, intor="int3c2e_pvxp1", comp=3, aosym="s1")
+    ordinary = df.incore.aux_e2(mol, aux, intor="int3c2e", aosym="s1")
+    factor = scipy.linalg.cho_factor(aux.intor("int2c2e"))
+    fitted_density = scipy.linalg.cho_solve(factor, np.einsum("klP,kl->P", ordinary, d))
+    coulomb = np.einsum("kmnP,P->kmn", so3, fitted_density)
+    weights = scipy.linalg.cho_solve(factor, ordinary.reshape(-1, aux.nao).T).T
+    weights = weights.reshape(ordinary.shape)  # (k n|Q) (Q|P)^-1, indexed [k, n, P]
+    half = np.einsum("kmlP,lj->kmjP", so3, d, optimize=True)
+    exchange = np.einsum("kmjP,jnP->kmn", half, weights, optimize=True)
+    return coulomb, exchange
+
+
+def spin_orbit_ao(mol: Any, operator: str, density: np.ndarray | None = None, *,
+                  density_fitting: bool = True) -> np.ndarray:
     """a_k (3, nao, nao), hartree, of the spin-orbit operator h_k = i a_k in the AO basis.
 
     ``operator`` is one of 'effective-charge', 'mean-field', 'bare-nuclear'; 'mean-field'
-    needs the total (alpha + beta) AO density of the reference.
+    needs the total (alpha + beta) AO density of the reference. ``density_fitting``: the mean field's
+    two-electron integrals by density fitting (auxiliary basis :data:`FITTING_BASIS`; errors
+    below 0.5 % of the couplings in our tests), else one exact pass over the four-index
+    spin-orbit integrals (cost ~N^4).
     """
     if mol.has_ecp():
         raise InputError("spin-orbit couplings need an all-electron basis: the effective core "
@@ -126,7 +165,7 @@ def spin_orbit_ao(mol: Any, operator: str, density: np.ndarray | None = None) ->
     if operator == "mean-field":
         if density is None:
             raise InputError("the mean-field spin-orbit operator needs the reference density")
-        return _nuclear_term(mol, charges) + _mean_field_term(mol, density)
+        return _nuclear_term(mol, charges) + _mean_field_term(mol, density, density_fitting)
     raise InputError(f"unknown spin-orbit operator {operator!r}: choose one of "
                      + ", ".join(OPERATORS))
 
@@ -177,7 +216,8 @@ def _selected(labels: Iterable[StateLabel | str] | None, available: list[StateLa
 def spin_orbit_couplings(evaluation: Evaluation, operator: str = "auto", *,
                          singlets: Iterable[StateLabel | str] | None = None,
                          triplets: Iterable[StateLabel | str] | None = None,
-                         method: MethodSpec | None = None) -> SpinOrbitCouplings:
+                         method: MethodSpec | None = None,
+                         density_fitting: bool = True) -> SpinOrbitCouplings:
     """<S_m|H_SO|T_n, M> (M = -1, 0, +1) and totals in cm^-1 at one evaluation.
 
     Parameters
@@ -193,9 +233,12 @@ def spin_orbit_couplings(evaluation: Evaluation, operator: str = "auto", *,
     method
         The method the evaluation came from, to record which amplitudes were used ('cis' for
         CIS/TDA, 'x+y' for TDHF/TDDFT); without it the record says 'cis-like'.
+    density_fitting
+        Mean field only: fit the two-electron spin-orbit integrals (default; about 0.1 %
+        of the couplings) instead of one exact four-index pass (cost ~N^4).
 
-    Couplings with the same geometry and states are cheap to recompute; the mean-field
-    operator costs one pass over the two-electron spin-orbit integrals.
+    Cost (acetone, CIS/6-31G*, benchmarks/soc_costs.py): effective charges about 1 % of the
+    states calculation, the fitted mean field about 20 %.
     """
     wf, sing_wf, trip_wf = _response_data(evaluation)
     geometry = evaluation.geometry
@@ -205,7 +248,8 @@ def spin_orbit_couplings(evaluation: Evaluation, operator: str = "auto", *,
     occ = np.asarray(sing_wf.reference.mo_occ)
     nocc = int(np.count_nonzero(occ > 0))
     density = (coeff * occ) @ coeff.T if chosen == "mean-field" else None
-    a_mo = np.einsum("pm,kpq,qn->kmn", coeff, spin_orbit_ao(mol, chosen, density), coeff)
+    a_mo = np.einsum("pm,kpq,qn->kmn", coeff, spin_orbit_ao(mol, chosen, density,
+                                                        density_fitting=density_fitting), coeff)
     s_labels = [s.label for s in evaluation.manifold("S")]
     t_labels = [s.label for s in evaluation.manifold("T")]
     s_chosen = _selected(singlets, s_labels, "singlet")
