@@ -171,18 +171,13 @@ def spin_orbit_ao(mol: Any, operator: str, density: np.ndarray | None = None, *,
 
 
 def _molecule(geometry: Geometry, wavefunction: Any) -> Any:
-    from pyscf import gto
+    """The engine's PySCF molecule of this evaluation (same basis, same AO order)."""
+    from .pyscf_scf import build_molecule
 
-    mol = gto.Mole()
-    mol.atom = [(s, tuple(float(c) for c in xyz))
-                for s, xyz in zip(geometry.symbols, geometry.coords_bohr)]
-    mol.unit = "Bohr"
-    mol.basis = wavefunction.basis
-    mol.charge = geometry.charge
-    mol.spin = geometry.spin
-    mol.cart = bool(wavefunction.cartesian_basis)
-    mol.verbose = 0
-    mol.build(dump_input=False, parse_arg=False)
+    mol = build_molecule(geometry, MethodSpec(basis=wavefunction.basis), geometry.spin, None, 0)
+    if bool(wavefunction.cartesian_basis) != bool(mol.cart):
+        mol.cart = bool(wavefunction.cartesian_basis)
+        mol.build(dump_input=False, parse_arg=False)
     return mol
 
 
