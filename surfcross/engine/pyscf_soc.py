@@ -232,8 +232,8 @@ def spin_orbit_couplings(evaluation: Evaluation, operator: str = "auto", *,
         Mean field only: fit the two-electron spin-orbit integrals (default; about 0.1 %
         of the couplings) instead of one exact four-index pass (cost ~N^4).
 
-    Cost (acetone, CIS/6-31G*, benchmarks/soc_costs.py): effective charges about 1 % of the
-    states calculation, the fitted mean field about 20 %.
+    Cost (acetone, 6-31G*, benchmarks/soc_costs.py): effective charges under 1 % of the
+    states calculation, the fitted mean field about 7 % of a CIS and 0.4 % of a TDA-B3LYP one.
     """
     wf, sing_wf, trip_wf = _response_data(evaluation)
     geometry = evaluation.geometry
