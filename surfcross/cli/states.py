@@ -6,12 +6,13 @@ import argparse
 import json
 import sys
 
+from ..analysis.spin_orbit import OPERATORS, SpinOrbitCouplings
 from ..analysis.vertical import VerticalRow, limits_note, vertical_rows, vertical_summary
 from ..engine import make_engine
 from ..errors import InputError
 from .options import add_geometry_argument, add_method_options, geometry_from_args, method_from_args
 
-__all__ = ["add_parser", "run", "format_table"]
+__all__ = ["add_parser", "run", "format_table", "format_couplings"]
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -24,6 +25,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     add_method_options(parser)
     parser.add_argument("--triplet-count", type=int, default=0, metavar="N",
                         help="also compute N triplets of a closed-shell molecule (default: 0)")
+    parser.add_argument("--soc", nargs="?", const="auto", default=None, metavar="OPERATOR",
+                        choices=("auto",) + OPERATORS,
+                        help="also print singlet-triplet spin-orbit couplings (cm^-1): "
+                             "auto (default when given), " + ", ".join(OPERATORS)
+                             + "; computes triplets if --triplet-count is 0")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument("--pyscf-log", default=None, metavar="FILE",
                         help="append PySCF's own output to FILE (default: discard it)")
@@ -51,6 +57,29 @@ def format_table(rows: tuple[VerticalRow, ...]) -> str:
     return "\n".join(lines)
 
 
+def format_couplings(couplings: SpinOrbitCouplings) -> str:
+    """Singlets down, triplets across: total couplings sqrt(sum_M |<S|H_SO|T, M>|^2)."""
+    singlets = list(dict.fromkeys(str(p.singlet) for p in couplings.pairs))
+    triplets = list(dict.fromkeys(str(p.triplet) for p in couplings.pairs))
+    totals = {(str(p.singlet), str(p.triplet)): p.total_cm for p in couplings.pairs}
+    lines = [f"spin-orbit couplings / cm^-1, total over M = -1, 0, +1 ({couplings.operator} "
+             "operator)", f"{'':<6}" + "".join(f"{t:>9}" for t in triplets)]
+    for s in singlets:
+        lines.append(f"{s:<6}" + "".join(f"{totals[(s, t)]:>9.2f}" for t in triplets))
+    return "\n".join(lines)
+
+
+def _soc_spec(args: argparse.Namespace, geometry, spec):
+    """The method with response triplets for --soc, or an InputError before any work."""
+    if spec.method == "casscf" or geometry.spin > 0 or spec.unrestricted \
+            or spec.triplets != "response":
+        raise InputError("--soc needs a linear-response method (cis, tda, tdhf, tddft) on a "
+                         "restricted closed-shell reference with response triplets")
+    if spec.triplet_roots == 0:
+        spec = spec.with_updates(triplet_roots=spec.roots)
+    return spec
+
+
 def run(args: argparse.Namespace) -> int:
     if args.triplet_count < 0:
         raise InputError("--triplet-count must be >= 0")
@@ -58,14 +87,23 @@ def run(args: argparse.Namespace) -> int:
     spec = method_from_args(args, roots=3, triplet_roots=args.triplet_count)
     if spec.method == "casscf" and args.triplet_count:
         raise InputError("--triplet-count applies to the linear-response methods only")
+    if args.soc:
+        spec = _soc_spec(args, geometry, spec)
     kwargs = {"log_path": args.pyscf_log} if args.pyscf_log else {}
     engine = make_engine(spec, **kwargs)
     try:
         evaluation = engine.states(geometry)
     finally:
         engine.close()
+    couplings = None
+    if args.soc:
+        from ..engine.pyscf_soc import spin_orbit_couplings
+
+        couplings = spin_orbit_couplings(evaluation, args.soc, method=spec)
     if args.json:
         summary = vertical_summary(evaluation, spec, source=args.geometry)
+        if couplings is not None:
+            summary["spin_orbit"] = couplings.to_dict()
         json.dump(summary, sys.stdout, indent=2)
         sys.stdout.write("\n")
         return 0
@@ -74,7 +112,12 @@ def run(args: argparse.Namespace) -> int:
           f"(SCF cycles {evaluation.scf_cycles}, response iterations "
           f"{evaluation.response_iterations})")
     print(format_table(vertical_rows(evaluation)))
+    if couplings is not None:
+        print(format_couplings(couplings))
     for text in evaluation.warnings:
         print(f"warning: {text}")
     print(f"note: {limits_note(spec)}")
+    if couplings is not None:
+        for text in couplings.notes:
+            print(f"note: {text}")
     return 0
