@@ -15,7 +15,11 @@ from .chain import ChainReport, run_chain
 from .inputs import Chain, JobTemplate, collect_molecules, make_chains, read_job_template
 from .molecules import BatchResult, run_batch, run_chains
 from .scheduler import ClusterSettings, Work, available_cores, have_dask, plan_workers, run_all
+from .seam import MergeRule, SeamResult, StartPlan, explore_seam, merge_crossings
+from .alignment import permuted_rmsd
 
 __all__ = ["ChainReport", "run_chain", "Chain", "JobTemplate", "collect_molecules",
            "make_chains", "read_job_template", "BatchResult", "run_batch", "run_chains",
-           "ClusterSettings", "Work", "available_cores", "have_dask", "plan_workers", "run_all"]
+           "ClusterSettings", "Work", "available_cores", "have_dask", "plan_workers", "run_all",
+           "MergeRule", "SeamResult", "StartPlan", "explore_seam", "merge_crossings",
+           "permuted_rmsd"]

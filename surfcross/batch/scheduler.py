@@ -206,8 +206,7 @@ def _serial(works: Sequence[Work], settings: ClusterSettings, progress: Progress
             CHAIN_STOP.set()
             break
         progress.running = 1
-        progress.show()
-        log.info("starting %s", work.name)
+        log.debug("starting %s", work.name)
         results[k] = work.function(**{**work.kwargs, "threads": threads})
         progress.running = 0
         progress.finished(results[k])

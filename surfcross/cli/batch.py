@@ -11,7 +11,8 @@ __all__ = ["add_parser", "run", "add_cluster_options", "cluster_from_args", "EXI
 EXIT_STOPPED = 130
 
 
-def add_cluster_options(parser: argparse.ArgumentParser) -> None:
+def add_cluster_options(parser: argparse.ArgumentParser, *, threads: bool = True) -> None:
+    """--cluster, --workers and (unless the command has it already) --threads."""
     g = parser.add_argument_group("where the work runs")
     g.add_argument("--cluster", default="auto", metavar="WHERE",
                    help="auto (a local Dask cluster when Dask is installed, else one after "
@@ -20,15 +21,17 @@ def add_cluster_options(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--workers", type=int, default=None, metavar="N",
                    help="worker processes of the local cluster (default: one per core, at "
                         "most one per chain)")
-    g.add_argument("--threads", type=int, default=None, metavar="N",
-                   help="PySCF threads per chain (default: the cores left per worker)")
+    if threads:
+        g.add_argument("--threads", type=int, default=None, metavar="N",
+                       help="PySCF threads per chain (default: the cores left per worker)")
 
 
 def cluster_from_args(args: argparse.Namespace):
     from ..batch import ClusterSettings
 
     return ClusterSettings(mode=args.cluster.strip().lower() if "://" not in args.cluster
-                           else args.cluster.strip(), workers=args.workers, threads=args.threads)
+                           else args.cluster.strip(), workers=args.workers,
+                           threads=getattr(args, "threads", None))
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
