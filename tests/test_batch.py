@@ -19,7 +19,6 @@ import numpy as np
 import pytest
 
 from surfcross.batch import ClusterSettings, collect_molecules, plan_workers, run_batch
-from surfcross.batch import chain as chain_module
 from surfcross.batch.inputs import job_template, make_chains
 from surfcross.errors import InputError
 from surfcross.geometry import read_xyz
@@ -152,7 +151,7 @@ def test_serial_set_isolates_the_broken_molecule(serial):
 
 
 def test_serial_energies_match_pyscf(serial):
-    pyscf = pytest.importorskip("pyscf")
+    pytest.importorskip("pyscf")
     from pyscf import gto, scf, tdscf
 
     out, _ = serial

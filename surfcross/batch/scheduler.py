@@ -217,7 +217,7 @@ def _serial(works: Sequence[Work], settings: ClusterSettings, progress: Progress
 
 def _dask():
     try:
-        import distributed
+        import distributed  # noqa: F401
     except ImportError:
         raise InputError("running on a cluster needs Dask: pip install 'surfcross[dask]' "
                          "(or use --cluster serial)") from None

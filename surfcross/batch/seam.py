@@ -28,22 +28,17 @@ chosen method, with its limits (see the caution in the table).
 
 from __future__ import annotations
 
-import csv
-import io
-import json
 import logging
-import math
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
-from ..analysis.vertical import limits_note
 from ..engine.base import MethodSpec
 from ..errors import CheckpointError, InputError
-from ..geometry import Geometry, read_xyz, write_xyz
+from ..geometry import Geometry, read_xyz
 from ..io.results import write_json_atomic
 from ..io.run import RunDirectory
 from ..states import parse_states
@@ -54,6 +49,9 @@ from . import records
 from .alignment import permuted_rmsd
 from .chain import CHAIN_STOP, _move_aside
 from .scheduler import ClusterSettings, Progress, Work, run_all
+from .seam_starts import (SeamStart, StartPlan, load_starts, mode_starts, plane_starts,
+                          random_starts)
+from .seam_table import CAUTION, SEAM_CSV, SEAM_JSON, SEAM_XYZ, seam_rows, write_table
 
 __all__ = ["StartPlan", "MergeRule", "SeamStart", "SeamCrossing", "SeamResult", "explore_seam",
            "plane_starts", "mode_starts", "random_starts", "merge_crossings", "search_from",
@@ -61,49 +59,10 @@ __all__ = ["StartPlan", "MergeRule", "SeamStart", "SeamCrossing", "SeamResult", 
 
 log = logging.getLogger(__name__)
 
-SEAM_JSON, SEAM_CSV, SEAM_XYZ = "seam_crossings.json", "seam_crossings.csv", "seam_crossings.xyz"
 PLANE_FILE, CENTRE_FILE = "plane.json", "centre.json"
-
-CAUTION = ("Distinct crossings of the chosen method only: a seam can hold minima no start "
-           "reached, and linear-response methods misplace crossings with the ground state. "
-           "Check the crossings you rely on with higher-level methods.")
 
 
 # ------------------------------------------------------------------------------ settings
-@dataclass(frozen=True, kw_only=True)
-class StartPlan:
-    """Which starts to make around the centre (lengths in bohr, Cartesian).
-
-    ``plane``: starts on a circle of radius ``plane_radius_bohr`` in the branching plane of the
-    anchor crossing (found from the centre). ``modes``: the lowest normal modes of
-    ``mode_state`` (default: the first of the pair) at the centre, each at +/-
-    ``mode_amplitude_bohr`` (largest atom displacement). ``random``: distortions with RMS
-    ``random_rms_bohr`` per atom, from the generator seeded with ``seed``. ``scan``: a relaxed
-    scan ``(atoms (0-based), values, state)`` whose points become starts. ``extra``: starts
-    given as geometries (e.g. the frames of an XYZ file).
-    """
-
-    plane: int = 6
-    plane_radius_bohr: float = 0.3
-    modes: int = 2
-    mode_amplitude_bohr: float = 0.3
-    mode_state: str | None = None
-    random: int = 4
-    random_rms_bohr: float = 0.15
-    seed: int = 20251
-    scan: tuple[tuple[int, ...], tuple[float, ...], str] | None = None
-    extra: tuple[Geometry, ...] = ()
-
-    def __post_init__(self) -> None:
-        for name in ("plane", "modes", "random"):
-            if getattr(self, name) < 0:
-                raise InputError(f"the number of {name} starts must be >= 0")
-        for name in ("plane_radius_bohr", "mode_amplitude_bohr", "random_rms_bohr"):
-            if not getattr(self, name) > 0:
-                raise InputError(f"{name} must be positive")
-        object.__setattr__(self, "extra", tuple(self.extra))
-
-
 @dataclass(frozen=True, kw_only=True)
 class MergeRule:
     """Two converged points are one crossing when both hold: energy difference below
@@ -113,13 +72,6 @@ class MergeRule:
     rmsd_angstrom: float = 0.1
     energy_eh: float = 5e-4
     mirror: bool = True
-
-
-@dataclass(frozen=True)
-class SeamStart:
-    name: str
-    origin: str
-    geometry: Geometry
 
 
 @dataclass(frozen=True)
@@ -153,47 +105,6 @@ class SeamResult:
     interrupted: bool = False
     notes: tuple[str, ...] = ()
     elapsed_s: float = 0.0
-
-
-# ------------------------------------------------------------------------------ starts
-def plane_starts(centre: Geometry, plane: np.ndarray, count: int, radius_bohr: float,
-                 prefix: str = "plane") -> list[SeamStart]:
-    """``count`` points on a circle of radius ``radius_bohr`` in the plane (2, 3N)."""
-    u, v = (np.asarray(x, float).reshape(centre.natom, 3) for x in np.asarray(plane)[:2])
-    out = []
-    for k in range(count):
-        angle = 2 * math.pi * k / count
-        shift = radius_bohr * (math.cos(angle) * u + math.sin(angle) * v)
-        out.append(SeamStart(f"{prefix}_{k + 1:02d}", f"branching plane, {math.degrees(angle):.0f} deg",
-                             centre.with_coords(centre.coords_bohr + shift)))
-    return out
-
-
-def mode_starts(centre: Geometry, modes: Sequence[np.ndarray], amplitude_bohr: float,
-                frequencies: Sequence[float] = ()) -> list[SeamStart]:
-    """+/- along each mode, scaled so that the largest atom displacement is the amplitude."""
-    out = []
-    for k, mode in enumerate(modes):
-        m = np.asarray(mode, float).reshape(centre.natom, 3)
-        m = m / np.linalg.norm(m, axis=1).max()
-        freq = f" ({frequencies[k]:.0f} cm^-1)" if k < len(frequencies) else ""
-        for sign, tag in ((1.0, "p"), (-1.0, "m")):
-            out.append(SeamStart(f"mode{k + 1}{tag}", f"normal mode {k + 1}{freq}, {'+' if sign > 0 else '-'}",
-                                 centre.with_coords(centre.coords_bohr + sign * amplitude_bohr * m)))
-    return out
-
-
-def random_starts(centre: Geometry, count: int, rms_bohr: float, seed: int) -> list[SeamStart]:
-    """Random distortions (no net translation), RMS ``rms_bohr`` per atom, fixed seed."""
-    rng = np.random.default_rng(seed)
-    out = []
-    for k in range(count):
-        d = rng.normal(size=(centre.natom, 3))
-        d -= d.mean(0)
-        d *= rms_bohr / max(np.sqrt((d ** 2).sum(1).mean()), 1e-12)
-        out.append(SeamStart(f"random_{k + 1:02d}", f"random distortion (seed {seed}, #{k + 1})",
-                             centre.with_coords(centre.coords_bohr + d)))
-    return out
 
 
 # ------------------------------------------------------------------------------ work
@@ -449,56 +360,8 @@ def explore_seam(centre: Geometry, states: str | Sequence[str], method: MethodSp
     result = SeamResult(folder=out, crossings=tuple(crossings), searches=tuple(searches),
                         centre_energies_eh=centre_energies, interrupted=interrupted,
                         notes=tuple(notes), elapsed_s=time.perf_counter() - started)
-    _write(result, labels, method, merge, plan.mode_state or labels[0])
+    write_table(result, labels, method, merge, plan.mode_state or labels[0])
     return result
 
 
-# ------------------------------------------------------------------------------ output
-TABLE_COLUMNS = ("crossing", "energy_eh", "vs_lowest_ev", "vs_centre_ev", "gap_ev", "kind",
-                 "topography", "paths", "probe", "count", "starts", "folder")
-
-
-def seam_rows(result: SeamResult, centre_state: str) -> list[dict[str, Any]]:
-    if not result.crossings:
-        return []
-    lowest = min(c.energy_eh for c in result.crossings)
-    centre = result.centre_energies_eh.get(centre_state)
-    return [c.row(lowest, centre) for c in result.crossings]
-
-
-def _write(result: SeamResult, labels: list[str], method: MethodSpec, merge: MergeRule,
-           centre_state: str) -> None:
-    rows = seam_rows(result, centre_state)
-    doc = {"format": "surfcross-seam", "version": 1, "states": labels,
-           "centre_state": centre_state, "centre_energies_eh": dict(result.centre_energies_eh),
-           "merge": {"rmsd_angstrom": merge.rmsd_angstrom, "energy_eh": merge.energy_eh,
-                     "mirror_images_equal": merge.mirror},
-           "interrupted": result.interrupted, "crossings": rows,
-           "searches": [{k: v for k, v in s.items() if k not in ("coords_bohr", "plane")}
-                        for s in result.searches],
-           "notes": list(result.notes), "method_note": limits_note(method), "caution": CAUTION}
-    write_json_atomic(result.folder / SEAM_JSON, doc)
-    buffer = io.StringIO()
-    writer = csv.DictWriter(buffer, fieldnames=TABLE_COLUMNS, extrasaction="ignore",
-                            lineterminator="\n")
-    writer.writeheader()
-    for row in rows:
-        writer.writerow({k: (" ".join(row[k]) if k == "starts" else
-                             "" if row.get(k) is None else
-                             f"{row[k]:.6f}" if isinstance(row.get(k), float) else row[k])
-                         for k in TABLE_COLUMNS})
-    (result.folder / SEAM_CSV).write_text(buffer.getvalue(), encoding="utf-8")
-    if result.crossings:
-        write_xyz(result.folder / SEAM_XYZ, [c.geometry for c in result.crossings],
-                  [f"{c.label} E={c.energy_eh:.10f} Eh starts={','.join(c.starts)}"
-                   for c in result.crossings])
-
-
-def load_starts(paths: Iterable[str | Path], charge: int = 0, spin: int = 0) -> tuple[Geometry, ...]:
-    """Starts from XYZ files (every frame), e.g. the trajectory.xyz of a relaxed scan."""
-    from ..geometry import read_xyz_frames
-
-    return tuple(g for p in paths for g in read_xyz_frames(p, charge, spin))
-
-
-__all__ += ["load_starts", "seam_rows", "TABLE_COLUMNS", "CAUTION", "centre_point"]
+__all__ += ["load_starts", "seam_rows", "CAUTION", "centre_point"]
