@@ -269,6 +269,7 @@ def test_rerun_with_another_job_is_refused(serial, tmp_path):
         run_batch(other, [out.parent / "mols"], out, cluster=ClusterSettings(mode="serial"))
 
 
+@pytest.mark.slow
 def test_command_line(tmp_path, capsys):
     from surfcross.cli.main import main
 

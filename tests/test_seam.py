@@ -83,12 +83,13 @@ def explored(tmp_path_factory):
     near_b = two_seam_geometry(2.4, 1.75, 3.1)
     # the same start with the end atoms exchanged, turned and moved: a permuted copy
     copy = two_seam_geometry(1.75, 2.4, 3.1, rotation=TURN, shift=(1.0, 2.0, 3.0))
-    plan = StartPlan(plane=4, modes=2, random=3, extra=(near_b, copy))
+    plan = StartPlan(plane=4, modes=1, random=2, extra=(near_b, copy))
     result = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, out, plan=plan,
                           cluster=ClusterSettings(mode="serial"), engine_factory=two_seam_engine)
     return out, result
 
 
+@pytest.mark.slow
 def test_both_crossings_found_with_their_closed_form_energies(explored):
     _, result = explored
     known = two_seam_crossings()
@@ -144,7 +145,7 @@ def test_rerun_keeps_every_search(explored, monkeypatch):
     import surfcross.tasks as tasks
     monkeypatch.setattr(tasks, "find_crossing", no_new_search)
     again = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, out,
-                         plan=StartPlan(plane=4, modes=2, random=3,
+                         plan=StartPlan(plane=4, modes=1, random=2,
                                         extra=(two_seam_geometry(2.4, 1.75, 3.1),
                                                two_seam_geometry(1.75, 2.4, 3.1, rotation=TURN,
                                                                  shift=(1.0, 2.0, 3.0)))),

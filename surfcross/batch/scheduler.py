@@ -31,7 +31,7 @@ from ..errors import InputError
 from ..tasks.run import STOP_REQUEST
 from .chain import CHAIN_STOP, stop_chains
 
-__all__ = ["Work", "ClusterSettings", "Progress", "run_all", "plan_workers",
+__all__ = ["Work", "ClusterSettings", "Progress", "Runner", "run_all", "plan_workers",
            "available_cores", "have_dask", "MODES"]
 
 log = logging.getLogger(__name__)
@@ -130,20 +130,23 @@ class Progress:
         self.total, self.noun = total, noun
         self.is_failure = failed or (lambda result: False)
         self.report = report or log.info
-        self.done = self.failed = self.running = 0
+        self.done = self.failed = self.running = self.stopped = 0
         self.started = time.perf_counter()
-        self._last: tuple[int, int, int] | None = None
+        self._last: tuple[int, ...] | None = None
         self._last_time = 0.0
 
     def finished(self, result: Any) -> None:
-        if self.is_failure(result):
+        status = result.get("status") if isinstance(result, Mapping) else getattr(result, "status", None)
+        if result is None or status == "interrupted":
+            self.stopped += 1
+        elif self.is_failure(result):
             self.failed += 1
         else:
             self.done += 1
 
     @property
     def waiting(self) -> int:
-        return max(0, self.total - self.done - self.failed - self.running)
+        return max(0, self.total - self.done - self.failed - self.running - self.stopped)
 
     def eta_s(self) -> float | None:
         ended = self.done + self.failed
@@ -156,13 +159,15 @@ class Progress:
         elapsed = time.perf_counter() - self.started
         eta = self.eta_s()
         left = "time left unknown" if eta is None else f"about {_duration(eta)} left"
-        if self.done + self.failed == self.total:
+        if self.done + self.failed + self.stopped == self.total:
             left = "all ended"
-        return (f"{self.noun}: {self.done} done, {self.running} running, {self.failed} failed, "
-                f"{self.waiting} waiting of {self.total}; {_duration(elapsed)} elapsed, {left}")
+        stopped = f", {self.stopped} stopped" if self.stopped else ""
+        return (f"{self.noun}: {self.done} done, {self.running} running, {self.failed} failed"
+                f"{stopped}, {self.waiting} waiting of {self.total}; {_duration(elapsed)} "
+                f"elapsed, {left}")
 
     def show(self, force: bool = False) -> None:
-        state = (self.done, self.failed, self.running)
+        state = (self.done, self.failed, self.running, self.stopped)
         now = time.perf_counter()
         if force or state != self._last or now - self._last_time > PROGRESS_EVERY_S:
             self._last, self._last_time = state, now
@@ -179,28 +184,66 @@ def _duration(seconds: float) -> str:
 
 
 # ------------------------------------------------------------------------------ running
+class Runner:
+    """An open place to run work: this process, or a Dask client (and its local cluster).
+
+    Use as a context manager; :meth:`run` may be called several times (the cluster is
+    started once). ``pieces`` sizes a local cluster (workers x threads, see plan_workers).
+    """
+
+    def __init__(self, settings: ClusterSettings = ClusterSettings(), pieces: int = 1,
+                 report: Callable[[str], None] | None = None) -> None:
+        self.settings, self.pieces = settings, pieces
+        self.report = report or log.info
+        mode = settings.mode
+        if mode == "auto":
+            mode = "local" if have_dask() else "serial"
+        self.mode = mode
+        self.client = self.cluster = None
+        self.threads = settings.threads or available_cores()
+
+    def __enter__(self) -> "Runner":
+        if self.mode != "serial":
+            distributed = _dask()
+            self.client, self.cluster, self.threads = _open(self.settings, self.pieces)
+            self.client.register_plugin(_worker_setup(distributed), name="surfcross-worker-setup")
+            where = self.settings.address or "a local Dask cluster"
+            self.report(f"running on {where}: {len(self.client.nthreads())} worker(s), "
+                        f"{self.threads} PySCF thread(s) each")
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        if self.client is not None:
+            self.client.close()
+        if self.cluster is not None:
+            self.cluster.close()
+        self.client = self.cluster = None
+
+    def run(self, works: Sequence[Work], progress: Progress | None = None) -> list[Any]:
+        """Run every piece; results in the order of ``works``.
+
+        A stop request ends the run after the pieces in progress reach their next checkpoint;
+        pieces that never started have the result None. The caller checks
+        :data:`~surfcross.tasks.run.STOP_REQUEST` afterwards.
+        """
+        progress = progress or Progress(len(works), report=self.report)
+        if self.client is None:
+            return _serial(works, self.threads, progress)
+        return _collect(_dask(), self.client, works, self.threads, progress)
+
+
 def run_all(works: Sequence[Work], settings: ClusterSettings = ClusterSettings(), *,
             progress: Progress | None = None) -> list[Any]:
-    """Run every piece; results in the order of ``works``.
-
-    A stop request ends the run after the pieces in progress reach their next checkpoint;
-    pieces that never started have the result None. The caller checks
-    :data:`~surfcross.tasks.run.STOP_REQUEST` afterwards.
-    """
+    """Run every piece once on a place opened for them (see :class:`Runner`)."""
     STOP_REQUEST.clear()
     CHAIN_STOP.clear()
-    progress = progress or Progress(len(works))
-    mode = settings.mode
-    if mode == "auto":
-        mode = "local" if have_dask() else "serial"
-    if mode == "serial":
-        return _serial(works, settings, progress)
-    return _distributed(works, settings, progress)
+    report = progress.report if progress is not None else None
+    with Runner(settings, len(works), report=report) as runner:
+        return runner.run(works, progress)
 
 
-def _serial(works: Sequence[Work], settings: ClusterSettings, progress: Progress) -> list[Any]:
+def _serial(works: Sequence[Work], threads: int, progress: Progress) -> list[Any]:
     results: list[Any] = [None] * len(works)
-    threads = settings.threads or available_cores()
     for k, work in enumerate(works):
         if STOP_REQUEST.is_set() or CHAIN_STOP.is_set():
             CHAIN_STOP.set()
@@ -257,21 +300,6 @@ def _open(settings: ClusterSettings, pieces: int):
     return client, cluster, threads
 
 
-def _distributed(works: Sequence[Work], settings: ClusterSettings, progress: Progress) -> list[Any]:
-    distributed = _dask()
-    client, cluster, threads = _open(settings, len(works))
-    where = settings.address or "a local Dask cluster"
-    progress.report(f"running on {where}: {len(client.nthreads())} worker(s), {threads} PySCF "
-                    f"thread(s) per {progress.noun[:-1] if progress.noun.endswith('s') else progress.noun}")
-    try:
-        client.register_plugin(_worker_setup(distributed), name="surfcross-worker-setup")
-        return _collect(distributed, client, works, threads, progress)
-    finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
-
-
 def _worker_setup(distributed: Any) -> Any:
     """A worker plugin: every worker, also one that joins or restarts after a crash, logs
     quietly, passes Ctrl-C on as a stop request and starts with no stop pending."""
@@ -304,7 +332,7 @@ def _collect(distributed: Any, client: Any, works: Sequence[Work], threads: int,
             progress.finished(results[k])
         if STOP_REQUEST.is_set() and not stopping:
             stopping = True
-            log.info("stopping: the running %s end after their current step", progress.noun)
+            progress.report(f"stopping: the running {progress.noun} end after their current step")
             client.run(stop_chains)
             running = _running_keys(client)
             waiting = [f for f in pending if f.key not in running]

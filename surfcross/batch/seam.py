@@ -48,7 +48,7 @@ from ..units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 from . import records
 from .alignment import permuted_rmsd
 from .chain import CHAIN_STOP, _move_aside
-from .scheduler import ClusterSettings, Progress, Work, run_all
+from .scheduler import ClusterSettings, Progress, Runner, Work
 from .seam_starts import (SeamStart, StartPlan, load_starts, mode_starts, plane_starts,
                           random_starts)
 from .seam_table import CAUTION, SEAM_CSV, SEAM_JSON, SEAM_XYZ, seam_rows, write_table
@@ -280,7 +280,7 @@ def _work(label: str, function: Callable[..., Any], **kwargs: Any) -> Work:
 
 def _first_stage(centre: Geometry, labels: list[str], method: MethodSpec, out: Path,
                  plan: StartPlan, search: str, options: RunOptions, factory: Any,
-                 cluster: ClusterSettings, report: Any) -> list[Any]:
+                 runner: Runner, report: Any) -> list[Any]:
     works = [_work("centre", search_from, name="centre", geometry=centre, states=labels,
                    method=method, folder=str(out / "starts" / "centre"), search=search,
                    options=options, engine_factory=factory, want_plane=plan.plane > 0),
@@ -292,7 +292,7 @@ def _first_stage(centre: Geometry, labels: list[str], method: MethodSpec, out: P
                            folder=str(out / "scan"), scan=plan.scan, engine_factory=factory))
     progress = Progress(len(works), "first steps", report=report,
                         failed=lambda r: isinstance(r, dict) and r.get("status") == "failed")
-    return run_all(works, cluster, progress=progress)
+    return runner.run(works, progress)
 
 
 def _starts(centre: Geometry, plan: StartPlan, anchor: Mapping[str, Any] | None,
@@ -337,8 +337,20 @@ def explore_seam(centre: Geometry, states: str | Sequence[str], method: MethodSp
     labels = [str(s) for s in parse_states(states, count=2)]
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
+    STOP_REQUEST.clear()
+    CHAIN_STOP.clear()
+    expected = plan.plane + 2 * plan.modes + plan.random + len(plan.extra) + len(
+        plan.scan[1] if plan.scan else ())
+    with Runner(cluster, max(expected, 3), report=report) as runner:
+        return _explore(centre, labels, method, out, plan, search, options, merge,
+                        engine_factory, runner, report, started)
+
+
+def _explore(centre: Geometry, labels: list[str], method: MethodSpec, out: Path, plan: StartPlan,
+             search: str, options: RunOptions, merge: MergeRule, engine_factory: Any,
+             runner: Runner, report: Any, started: float) -> SeamResult:
     first = _first_stage(centre, labels, method, out, plan, search, options, engine_factory,
-                         cluster, report)
+                         runner, report)
     anchor, point = first[0], first[1]
     notes: list[str] = []
     stopped = STOP_REQUEST.is_set() or CHAIN_STOP.is_set()
@@ -349,7 +361,7 @@ def explore_seam(centre: Geometry, states: str | Sequence[str], method: MethodSp
                    options=options, engine_factory=engine_factory) for s in starts]
     progress = Progress(len(works), "searches", report=report,
                         failed=lambda r: r is None or not r.get("converged"))
-    found = run_all(works, cluster, progress=progress) if works else []
+    found = runner.run(works, progress) if works else []
     searches = [dict(anchor or {"name": "centre", "status": "interrupted"}, origin="the centre")]
     searches += [dict(r or {"name": s.name, "status": "interrupted", "converged": False},
                       origin=s.origin) for s, r in zip(starts, found)]

@@ -187,7 +187,7 @@ def overview_plot(out: str | Path, rows: Sequence[Mapping[str, Any]]) -> Path | 
         return None
     fig, ax = made
     names = list(dict.fromkeys(r["molecule"] for r in rows))
-    marks = {"absorption": ("^", "tab:blue"), "relaxed": ("o", "tab:green"),
+    marks = {"absorption": ("^", "tab:blue"), "relaxed excited state": ("o", "tab:green"),
              "crossing": ("x", "tab:red")}
     used: set[str] = set()
     for x, name in enumerate(names):
@@ -217,9 +217,9 @@ def _levels(rows: Sequence[Mapping[str, Any]]) -> list[tuple[str, float]]:
         if r.get("kind") in ("states", "emission") and r.get("absorption_ev") is not None:
             out.append(("absorption", r["absorption_ev"]))
         if r.get("kind") == "emission" and r.get("energy_ev") is not None:
-            out.append(("relaxed", r["energy_ev"]))
+            out.append(("relaxed excited state", r["energy_ev"]))
         if r.get("kind") == "relax" and r.get("emission_ev") is not None and r.get("energy_ev") is not None:
-            out.append(("relaxed", r["energy_ev"]))
-        if r.get("kind") == "cross" and r.get("energy_ev") is not None:
+            out.append(("relaxed excited state", r["energy_ev"]))
+        if r.get("kind") == "cross" and r.get("energy_ev") is not None and r.get("status") == "converged":
             out.append(("crossing", r["energy_ev"]))
     return out
