@@ -90,7 +90,7 @@ def run_chains(chains: Sequence[Chain], out: str | Path, *,
     Chains with an ``error`` (bad input found while preparing them) are not run and come back
     failed with that reason.
     """
-    out = Path(out)
+    out = Path(out).resolve()  # workers on other machines do not share our working folder
     runnable = [c for c in chains if c.job is not None]
     works = [Work(name=c.name, function=run_chain,
                   kwargs={"name": c.name, "job": c.job, "folder": str(out / c.name),

@@ -335,7 +335,7 @@ def explore_seam(centre: Geometry, states: str | Sequence[str], method: MethodSp
     """
     started = time.perf_counter()
     labels = [str(s) for s in parse_states(states, count=2)]
-    out = Path(out)
+    out = Path(out).resolve()  # workers on other machines do not share our working folder
     out.mkdir(parents=True, exist_ok=True)
     STOP_REQUEST.clear()
     CHAIN_STOP.clear()
