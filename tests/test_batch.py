@@ -124,6 +124,20 @@ def test_smiles_lists(tmp_path):
     entries = collect_molecules([tmp_path / "set.smi"])
     assert [e.name for e in entries] == ["formaldehyde", "set_003"]
     assert entries[0].source == {"smiles": "C=O"}
+    template = job_template({"method": {"method": "cis"}, "task": [{"kind": "states"}]})
+    chains = make_chains(template, entries)
+    assert [c.job.molecule.natom for c in chains] == [4, 2]  # hydrogens added by RDKit
+
+
+def test_without_dask_the_same_command_runs_serially(monkeypatch):
+    from surfcross.batch import scheduler
+
+    monkeypatch.setattr(scheduler, "have_dask", lambda: False)
+    with scheduler.Runner(ClusterSettings()) as runner:
+        assert runner.mode == "serial" and runner.client is None
+        assert runner.run([scheduler.Work("w", lambda threads=None: threads)]) == [runner.threads]
+    with pytest.raises(InputError, match="unknown cluster"):
+        ClusterSettings(mode="everywhere")
 
 
 def test_workers_and_threads_share_the_cores():

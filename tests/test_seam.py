@@ -175,3 +175,45 @@ def test_on_a_local_cluster_equals_serial(explored, tmp_path):
                           engine_factory=two_seam_engine)
     assert [round(c.energy_eh, 5) for c in result.crossings] == [
         round(c.energy_eh, 5) for c in serial.crossings]
+
+
+def test_scan_points_become_starts(tmp_path):
+    # a relaxed scan of the first end-atom bond (1-based atoms 1,2) on S1, two points
+    plan = StartPlan(plane=0, modes=0, random=0, scan=((0, 1), (1.05, 1.12), "S1"))
+    result = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, tmp_path / "s",
+                          plan=plan, cluster=ClusterSettings(mode="serial"),
+                          engine_factory=two_seam_engine)
+    names = [s["name"] for s in result.searches]
+    assert names == ["centre", "scan_01", "scan_02"]
+    start = json.loads((tmp_path / "s" / "scan" / "result.json").read_text())
+    assert start["task"] == "scan" and start["converged"]
+    # every start reaches one of the two known crossings (closed form, see the model)
+    known = sorted(v["energy_eh"] for v in two_seam_crossings().values())
+    for c in result.crossings:
+        assert min(abs(c.energy_eh - e) for e in known) < 2e-6
+
+
+@pytest.mark.slow
+def test_command_line_on_pyscf(tmp_path, capsys):
+    from surfcross.cli.main import main
+
+    # methylene: closed-shell singlet S0 and the high-spin triplet T1 (two SCF states)
+    (tmp_path / "ch2.xyz").write_text("3\nmethylene\nC 0 0 0\nH 0 0.87 0.64\nH 0 -0.87 0.64\n")
+    code = main(["-q", "seams", str(tmp_path / "ch2.xyz"), "--states", "S0,T1", "--method", "cis",
+                 "--triplets", "high-spin", "--plane", "0", "--modes", "0", "--random", "1",
+                 "--cluster", "serial", "--out", str(tmp_path / "out")])
+    out = capsys.readouterr().out
+    assert code == 0 and "1 distinct crossing(s)" in out and "caution:" in out
+    doc = json.loads((tmp_path / "out" / "seam_crossings.json").read_text())
+    x = doc["crossings"][0]
+    assert sorted(x["starts"]) == ["centre", "random_01"]
+    # reference library: PySCF RHF (singlet) and UHF (M_S = 1 triplet) at the crossing found
+    from pyscf import gto, scf
+    from surfcross.geometry import read_xyz_frames
+
+    geom = read_xyz_frames(tmp_path / "out" / "seam_crossings.xyz")[0]
+    atoms = [(s, xyz) for s, xyz in zip(geom.symbols, geom.coords_angstrom)]
+    e_s = scf.RHF(gto.M(atom=atoms, basis="sto-3g", verbose=0)).run(conv_tol=1e-11).e_tot
+    e_t = scf.UHF(gto.M(atom=atoms, basis="sto-3g", spin=2, verbose=0)).run(conv_tol=1e-11).e_tot
+    assert abs(e_s - e_t) < 1e-3  # the default gap tolerance of crossing searches
+    assert x["energy_eh"] == pytest.approx(0.5 * (e_s + e_t), abs=1e-6)

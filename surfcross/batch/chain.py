@@ -16,6 +16,7 @@ again.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import socket
@@ -35,7 +36,7 @@ from ..tasks.run import STOP_REQUEST
 from . import records
 
 __all__ = ["ChainReport", "run_chain", "CHAIN_STOP", "stop_chains", "RESUMABLE_KINDS",
-           "ATTEMPTS_FILE"]
+           "ATTEMPTS_FILE", "quiet_logs", "move_aside"]
 
 log = logging.getLogger(__name__)
 
@@ -105,7 +106,7 @@ class _Continuation:
                 return TaskOutcome(name=task.name, kind=task.kind, status=outcome.status,
                                    converged=bool(outcome.converged), run_dir=path,
                                    message=outcome.message, result=outcome)
-        _move_aside(path)
+        move_aside(path)
         return None
 
     def _kept(self, task: Any, path: Path, result: dict) -> TaskOutcome:
@@ -131,7 +132,8 @@ class _Continuation:
                            show=tuple(task.options.get("show", ())) if task.kind == "states" else ())
 
 
-def _move_aside(path: Path) -> Path:
+def move_aside(path: Path) -> Path:
+    """Rename an unfinished folder to NAME.unfinished (_2, _3, ...): nothing is deleted."""
     for n in range(1, 10000):
         target = path.with_name(f"{path.name}.unfinished" + ("" if n == 1 else f"_{n}"))
         if not target.exists():
@@ -139,6 +141,20 @@ def _move_aside(path: Path) -> Path:
             log.info("moved the unfinished folder %s aside to %s", path, target.name)
             return target
     raise InputError(f"too many unfinished copies of {path}")
+
+
+@contextlib.contextmanager
+def quiet_logs(quiet: bool = True):
+    """Within: surfcross logs warnings and errors only (a batch reports its chains, not their
+    steps and settings)."""
+    logger = logging.getLogger("surfcross")
+    level = logger.level
+    if quiet and logger.getEffectiveLevel() < logging.WARNING:
+        logger.setLevel(logging.WARNING)
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
 
 
 def _note_attempt(folder: Path) -> None:
@@ -176,13 +192,10 @@ def run_chain(name: str, job: Job, folder: str | Path, *, progress: bool = False
     continuing = records.read_job_summary(folder) is not None or any(
         p.is_dir() for p in folder.iterdir())
     hook = _Continuation(job, progress)
-    quiet = logging.getLogger("surfcross")
-    level = quiet.level
-    if not progress and quiet.getEffectiveLevel() < logging.WARNING:
-        quiet.setLevel(logging.WARNING)  # the batch reports chains, not their steps
     try:
-        result = run_job(job, out=folder, keep_going=keep_going, progress=progress,
-                         earlier_run=hook if continuing else None)
+        with quiet_logs(not progress):
+            result = run_job(job, out=folder, keep_going=keep_going, progress=progress,
+                             earlier_run=hook if continuing else None)
     except KeyboardInterrupt:
         return ChainReport(name=name, status="interrupted", folder=str(folder),
                            reason="stopped on request; rerun the batch to continue",
@@ -196,8 +209,6 @@ def run_chain(name: str, job: Job, folder: str | Path, *, progress: bool = False
         return ChainReport(name=name, status="failed", folder=str(folder),
                            reason=f"unexpected {type(exc).__name__}: {exc}",
                            elapsed_s=time.perf_counter() - started)
-    finally:
-        quiet.setLevel(level)
     failed = [o for o in result.outcomes if o.status == "failed"]
     if failed:
         status, reason = "failed", f"task {failed[0].name}: {failed[0].message}"

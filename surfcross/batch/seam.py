@@ -47,7 +47,7 @@ from ..tasks.run import STOP_REQUEST
 from ..units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 from . import records
 from .alignment import permuted_rmsd
-from .chain import CHAIN_STOP, _move_aside
+from .chain import CHAIN_STOP, move_aside, quiet_logs
 from .scheduler import ClusterSettings, Progress, Runner, Work
 from .seam_starts import (SeamStart, StartPlan, load_starts, mode_starts, plane_starts,
                           random_starts)
@@ -112,7 +112,8 @@ def _engine(factory: Callable[[], Any] | None) -> Any:
     return None if factory is None else factory()
 
 
-def search_from(name: str, geometry: Geometry, states: Sequence[str], method: MethodSpec,
+def _search_from_body(name: str, geometry: Geometry, states: Sequence[str],
+                      method: MethodSpec,
                 folder: str, *, search: str = "auto", options: RunOptions = RunOptions(),
                 engine_factory: Callable[[], Any] | None = None, want_plane: bool = False,
                 threads: int | None = None) -> dict[str, Any]:
@@ -133,9 +134,9 @@ def search_from(name: str, geometry: Geometry, states: Sequence[str], method: Me
                 task = resume(path, progress=False, engine=_engine(engine_factory))
             except CheckpointError as exc:
                 log.info("%s: cannot continue (%s); searching again", path, exc)
-                _move_aside(path)
+                move_aside(path)
         elif result is None and path.exists():
-            _move_aside(path)
+            move_aside(path)
         if result is None and task is None:
             path.parent.mkdir(parents=True, exist_ok=True)
             task = find_crossing(geometry, list(states), method, search=search, options=options,
@@ -178,7 +179,7 @@ def _search_record(name: str, path: Path, result: Mapping[str, Any] | None,
             "plane": plane.get("plane") if plane else None}
 
 
-def centre_point(geometry: Geometry, method: MethodSpec, folder: str, *, state: str,
+def _centre_point_body(geometry: Geometry, method: MethodSpec, folder: str, *, state: str,
                  modes: int = 0, engine_factory: Callable[[], Any] | None = None,
                  threads: int | None = None) -> dict[str, Any]:
     """Energies of all states at the centre and (``modes`` > 0) the lowest normal modes of
@@ -212,7 +213,7 @@ def centre_point(geometry: Geometry, method: MethodSpec, folder: str, *, state: 
     return out
 
 
-def _scan_points(geometry: Geometry, method: MethodSpec, folder: str, *,
+def _scan_points_body(geometry: Geometry, method: MethodSpec, folder: str, *,
                  scan: tuple, engine_factory: Callable[[], Any] | None = None,
                  threads: int | None = None) -> list[list[list[float]]]:
     """Geometries (bohr) of a relaxed scan run in ``folder`` (kept when already finished)."""
@@ -222,7 +223,7 @@ def _scan_points(geometry: Geometry, method: MethodSpec, folder: str, *,
     path = Path(folder)
     if records.read_result(path) is None:
         if path.exists():
-            _move_aside(path)
+            move_aside(path)
         atoms, values, state = scan
         if threads is not None:
             method = method.with_updates(threads=int(threads))
@@ -231,6 +232,23 @@ def _scan_points(geometry: Geometry, method: MethodSpec, folder: str, *,
                  engine=_engine(engine_factory))
     frames = read_xyz_frames(path / "trajectory.xyz", geometry.charge, geometry.spin)
     return [g.coords_bohr.tolist() for g in frames]
+
+
+def search_from(*args: Any, **kwargs: Any) -> dict[str, Any]:
+    """One crossing search in its folder (see :func:`_search_from_body`), logging quietly."""
+    with quiet_logs():
+        return _search_from_body(*args, **kwargs)
+
+
+def centre_point(*args: Any, **kwargs: Any) -> dict[str, Any]:
+    """Energies and normal modes at the centre (see :func:`_centre_point_body`)."""
+    with quiet_logs():
+        return _centre_point_body(*args, **kwargs)
+
+
+def _scan_points(*args: Any, **kwargs: Any) -> list:
+    with quiet_logs():
+        return _scan_points_body(*args, **kwargs)
 
 
 # ------------------------------------------------------------------------------ merging
