@@ -283,12 +283,12 @@ def test_rerun_with_another_job_is_refused(serial, tmp_path):
         run_batch(other, [out.parent / "mols"], out, cluster=ClusterSettings(mode="serial"))
 
 
-@pytest.mark.slow
 def test_command_line(tmp_path, capsys):
     from surfcross.cli.main import main
 
     job, mols = _inputs(tmp_path, broken=False)
     (mols / "water.xyz").unlink()
+    job.write_text(JOB.split("[[task]]\nname = \"s0\"")[0])  # vertical states only
     code = main(["-q", "batch", str(job), str(mols), "--out", str(tmp_path / "cli"),
                  "--cluster", "serial"])
     out = capsys.readouterr().out

@@ -83,7 +83,7 @@ def explored(tmp_path_factory):
     near_b = two_seam_geometry(2.4, 1.75, 3.1)
     # the same start with the end atoms exchanged, turned and moved: a permuted copy
     copy = two_seam_geometry(1.75, 2.4, 3.1, rotation=TURN, shift=(1.0, 2.0, 3.0))
-    plan = StartPlan(plane=4, modes=1, random=2, extra=(near_b, copy))
+    plan = StartPlan(plane=2, modes=1, random=1, extra=(near_b, copy))
     result = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, out, plan=plan,
                           cluster=ClusterSettings(mode="serial"), engine_factory=two_seam_engine)
     return out, result
@@ -145,7 +145,7 @@ def test_rerun_keeps_every_search(explored, monkeypatch):
     import surfcross.tasks as tasks
     monkeypatch.setattr(tasks, "find_crossing", no_new_search)
     again = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, out,
-                         plan=StartPlan(plane=4, modes=1, random=2,
+                         plan=StartPlan(plane=2, modes=1, random=1,
                                         extra=(two_seam_geometry(2.4, 1.75, 3.1),
                                                two_seam_geometry(1.75, 2.4, 3.1, rotation=TURN,
                                                                  shift=(1.0, 2.0, 3.0)))),
@@ -169,7 +169,7 @@ def test_merge_thresholds():
 def test_on_a_local_cluster_equals_serial(explored, tmp_path):
     pytest.importorskip("distributed")
     _, serial = explored
-    plan = StartPlan(plane=2, modes=0, random=1, extra=(two_seam_geometry(2.4, 1.75, 3.1),))
+    plan = StartPlan(plane=0, modes=0, random=0, extra=(two_seam_geometry(2.4, 1.75, 3.1),))
     result = explore_seam(two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, tmp_path / "c",
                           plan=plan, cluster=ClusterSettings(mode="local", workers=2),
                           engine_factory=two_seam_engine)

@@ -109,8 +109,13 @@ def run(args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"surfcross: {line}", file=sys.stderr, flush=True)
 
-    result = run_batch(job, args.molecules, out, cluster=cluster_from_args(args),
-                       keep_going=not args.stop_chain_at_failure, report=report)
+    try:
+        result = run_batch(job, args.molecules, out, cluster=cluster_from_args(args),
+                           keep_going=not args.stop_chain_at_failure, report=report)
+    except KeyboardInterrupt:  # a second Ctrl-C: the checkpoints written so far remain
+        print(f"surfcross: stopped at once; run the same command again to continue the batch "
+              f"in {out}", file=sys.stderr)
+        return EXIT_STOPPED
     print("\n".join(summary_lines(result)))
     note = (read_json(out / SUMMARY_JSON) or {}).get("note")
     if note:

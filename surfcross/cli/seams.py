@@ -121,9 +121,14 @@ def run(args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"surfcross: {line}", file=sys.stderr, flush=True)
 
-    result = explore_seam(geometry, [str(x) for x in labels], spec, out, plan=plan,
-                          search=args.search, options=options, merge=merge,
-                          cluster=cluster_from_args(args), report=report)
+    try:
+        result = explore_seam(geometry, [str(x) for x in labels], spec, out, plan=plan,
+                              search=args.search, options=options, merge=merge,
+                              cluster=cluster_from_args(args), report=report)
+    except KeyboardInterrupt:  # a second Ctrl-C: the checkpoints written so far remain
+        print(f"surfcross: stopped at once; run the same command again to continue in {out}",
+              file=sys.stderr)
+        return EXIT_STOPPED
     converged = sum(bool(s.get("converged")) for s in result.searches)
     print(f"seams {out}: {len(result.searches)} searches, {converged} converged, "
           f"{len(result.crossings)} distinct crossing(s) ({result.elapsed_s:.0f} s)")
