@@ -217,3 +217,36 @@ def test_command_line_on_pyscf(tmp_path, capsys):
     e_t = scf.UHF(gto.M(atom=atoms, basis="sto-3g", spin=2, verbose=0)).run(conv_tol=1e-11).e_tot
     assert abs(e_s - e_t) < 1e-3  # the default gap tolerance of crossing searches
     assert x["energy_eh"] == pytest.approx(0.5 * (e_s + e_t), abs=1e-6)
+
+
+def test_interrupted_search_continues_from_its_checkpoint(tmp_path, monkeypatch):
+    from surfcross.io import run as run_module
+    from surfcross.tasks.run import request_stop
+
+    original = run_module.RunDirectory.observers
+
+    def observers(self, *, progress=True):
+        found = original(self, progress=progress)
+        if self.path.name == "given_01":
+            def stop_at_step_two(record):  # a Ctrl-C arriving during step 2
+                if record.iteration == 2:
+                    request_stop()
+            found.append(stop_at_step_two)
+        return found
+
+    plan = StartPlan(plane=0, modes=0, random=0, extra=(two_seam_geometry(2.4, 1.75, 3.1),))
+    args = (two_seam_geometry(2.05, 1.95, 2.9), "S1,S2", MODEL, tmp_path / "s")
+    kwargs = dict(plan=plan, cluster=ClusterSettings(mode="serial"), engine_factory=two_seam_engine)
+    monkeypatch.setattr(run_module.RunDirectory, "observers", observers)
+    first = explore_seam(*args, **kwargs)
+    assert first.interrupted
+    assert (tmp_path / "s" / "starts" / "given_01" / "checkpoint.h5").exists()
+    assert not (tmp_path / "s" / "starts" / "given_01" / "result.json").exists()
+    monkeypatch.setattr(run_module.RunDirectory, "observers", original)
+    again = explore_seam(*args, **kwargs)
+    assert not again.interrupted
+    assert not list((tmp_path / "s" / "starts").glob("*.unfinished*"))  # continued, not redone
+    # closed-form energies of the model's two crossings
+    known = two_seam_crossings()
+    assert [round(c.energy_eh, 5) for c in again.crossings] == [
+        round(known["A"]["energy_eh"], 5), round(known["B"]["energy_eh"], 5)]
