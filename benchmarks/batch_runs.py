@@ -12,6 +12,8 @@ each copy distorted differently):
 * ``1 worker`` and ``2 workers``: a Dask LocalCluster of that many worker processes, one
   PySCF thread each; cluster start-up is timed separately and not included;
 * every worker imports PySCF before the timing starts (so does this process);
+* cores obtained: CPU seconds the chains' processes spent divided by the wall time -- on a
+  machine shared with other work this is what bounds the 2-worker speed-up;
 * overhead per chain: wall time of the cluster run minus the time the chains themselves
   report, divided by N (what the scheduler, the transfers and the bookkeeping add per chain),
   and the round trip of N pieces that do nothing.
@@ -55,6 +57,15 @@ def idle(threads: int | None = None) -> dict:
     return {"status": "finished"}
 
 
+def timed_chain(threads: int | None = None, **kwargs) -> tuple:
+    """run_chain, with the CPU time this process spent on it (all its threads)."""
+    from surfcross.batch.chain import run_chain
+
+    cpu = time.process_time()
+    report = run_chain(threads=threads, **kwargs)
+    return report, time.process_time() - cpu
+
+
 def warm(threads: int | None = None) -> dict:
     """Import PySCF and the engine in a worker before anything is timed."""
     import pyscf  # noqa: F401
@@ -82,20 +93,20 @@ def _timed_chains(chains, out: Path, settings: ClusterSettings) -> dict:
     start = time.perf_counter()
     with Runner(settings, len(chains), report=lambda line: None) as runner:
         ready = time.perf_counter()
-        from surfcross.batch.chain import run_chain
-
         warming = [Work(name=f"warm{k}", function=warm) for k in range(4)]
         runner.run(warming, Progress(len(warming), report=lambda line: None))
 
-        works = [Work(name=c.name, function=run_chain,
+        works = [Work(name=c.name, function=timed_chain,
                       kwargs={"name": c.name, "job": c.job, "folder": str(out / c.name)})
                  for c in chains]
         begun = time.perf_counter()
-        reports = runner.run(works, Progress(len(works), report=lambda line: None))
+        results = runner.run(works, Progress(len(works), report=lambda line: None))
         wall = time.perf_counter() - begun
+    reports = [r for r, _ in results]
     inside = sum(r.elapsed_s for r in reports)
-    return {"startup_s": ready - start, "wall_s": wall, "chains_s": inside,
-            "finished": sum(r.status == "finished" for r in reports),
+    cpu = sum(c for _, c in results)
+    return {"startup_s": ready - start, "wall_s": wall, "chains_s": inside, "cpu_s": cpu,
+            "cores_used": cpu / wall, "finished": sum(r.status == "finished" for r in reports),
             "workers": settings.workers}
 
 
@@ -135,11 +146,12 @@ def main(argv: list[str] | None = None) -> int:
     print(f"{n} chains (CIS/STO-3G water: vertical states + ground-state minimum), "
           f"{os.cpu_count()} cores seen, load average before {load[0]:.1f}, after "
           f"{os.getloadavg()[0]:.1f}")
-    print("| run | wall s | sum of chain times s | cluster start-up s | finished |")
-    print("|---|---|---|---|---|")
+    print("| run | wall s | sum of chain times s | CPU s of the chains | cores obtained "
+          "(CPU / wall) | cluster start-up s | finished |")
+    print("|---|---|---|---|---|---|---|")
     for name, r in runs.items():
-        print(f"| {name} | {r['wall_s']:.1f} | {r['chains_s']:.1f} | "
-              f"{r['startup_s']:.1f} | {r['finished']}/{n} |")
+        print(f"| {name} | {r['wall_s']:.1f} | {r['chains_s']:.1f} | {r['cpu_s']:.1f} | "
+              f"{r['cores_used']:.2f} | {r['startup_s']:.1f} | {r['finished']}/{n} |")
     print()
     print("| measure | target | measured | verdict |")
     print("|---|---|---|---|")
