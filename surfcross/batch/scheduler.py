@@ -27,7 +27,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
-from ..errors import InputError
+from ..errors import InputError, SurfcrossError
 from ..tasks.run import STOP_REQUEST
 from .chain import CHAIN_STOP, stop_chains
 
@@ -293,9 +293,15 @@ def _open(settings: ClusterSettings, pieces: int):
     workers, threads = plan_workers(available_cores(), pieces, settings.workers, settings.threads)
     env = {"OMP_NUM_THREADS": str(threads), "OPENBLAS_NUM_THREADS": str(threads),
            "MKL_NUM_THREADS": str(threads)}
-    cluster = distributed.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                       dashboard_address=None, silence_logs=logging.ERROR,
-                                       env=env)
+    try:
+        cluster = distributed.LocalCluster(n_workers=workers, threads_per_worker=1,
+                                           processes=True, dashboard_address=None,
+                                           silence_logs=logging.ERROR, env=env)
+    except Exception as exc:  # noqa: BLE001 - Dask gives RuntimeError, OSError, timeouts
+        raise SurfcrossError(
+            f"the local Dask cluster could not start its worker processes ({exc}). Worker "
+            "processes import the main script again: in a script, call surfcross under "
+            "'if __name__ == \"__main__\":'; or run without Dask (cluster 'serial')") from None
     client = distributed.Client(cluster)
     return client, cluster, threads
 
