@@ -19,7 +19,8 @@ __all__ = ["main", "build_parser", "SUBCOMMANDS"]
 
 #: subcommand modules under surfcross.cli; each defines ``add_parser(subparsers)`` which
 #: registers the subcommand with ``set_defaults(handler=run)``, and ``run(args) -> int``.
-SUBCOMMANDS = ("states", "relax", "cross", "resume", "run", "demo", "emission", "path", "scan")
+SUBCOMMANDS = ("states", "relax", "cross", "resume", "run", "demo", "emission", "path", "scan",
+               "batch", "seams")
 
 EXIT_OK, EXIT_NOT_CONVERGED, EXIT_BAD_INPUT = 0, 1, 2
 

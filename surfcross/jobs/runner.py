@@ -33,11 +33,15 @@ from ..tasks.common import check_labels, prepare_method
 from . import Job
 
 __all__ = ["TaskOutcome", "JobResult", "run_job", "run_options_from_task", "task_labels",
-           "TASK_RUNNERS", "SUMMARY_FILE"]
+           "TASK_RUNNERS", "SUMMARY_FILE", "task_folder_name", "EarlierRun"]
 
 log = logging.getLogger(__name__)
 
 SUMMARY_FILE = "summary.json"
+
+#: called before a task runs when a job continues in its old folder: (task, task folder) ->
+#: the outcome to keep (a finished or resumed task), or None to run the task afresh
+EarlierRun = Callable[[Any, Path], "TaskOutcome | None"]
 
 #: optimizer keys of job files that override single convergence thresholds
 _THRESHOLDS = ("max_force", "rms_force", "max_step", "rms_step", "energy_change")
@@ -252,10 +256,18 @@ def kind_available(kind: str) -> bool:
 
 
 # ------------------------------------------------------------------------------ the job
-def _job_folder(job: Job, out: str | Path | None) -> RunDirectory:
-    names = [re.sub(r"[^A-Za-z0-9._-]+", "_", t.name).strip("._") or "task" for t in job.tasks]
+def task_folder_name(name: str) -> str:
+    """The folder of task ``name`` inside its job folder (as RunDirectory.child names it)."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("._") or "task"
+
+
+def _job_folder(job: Job, out: str | Path | None, continuing: bool = False) -> RunDirectory:
+    names = [task_folder_name(t.name) for t in job.tasks]
     if out is not None:
         path = Path(out)
+        if continuing:
+            path.mkdir(parents=True, exist_ok=True)
+            return RunDirectory(path)
         if path.is_dir() and any((path / n).exists() for n in [*names, SUMMARY_FILE]):
             raise InputError(f"{str(path)!r} already holds a job run; choose another --out")
         return RunDirectory.create(path)
@@ -297,7 +309,7 @@ def _start(job: Job, task: Any, geometries: Mapping[str, Geometry]) -> Geometry:
 
 
 def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False,
-            progress: bool = True) -> JobResult:
+            progress: bool = True, earlier_run: EarlierRun | None = None) -> JobResult:
     """Run the tasks of ``job`` in order and write the job folder.
 
     Parameters
@@ -308,6 +320,10 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
     keep_going
         Continue after a task that did not converge or failed (tasks starting from it are
         skipped). Default: stop at the first such task.
+    earlier_run
+        Continue the job in its existing folder ``out`` (required then): called with each task
+        and its folder before the task runs; the outcome it returns is kept (a finished or
+        resumed task), None runs the task afresh (its folder must then be free).
 
     Returns
     -------
@@ -315,12 +331,14 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
         ``converged`` is True only if every task converged or finished.
     """
     validate_job(job)
-    folder = _job_folder(job, out)
+    if earlier_run is not None and out is None:
+        raise InputError("continuing a job needs its folder (out)")
+    folder = _job_folder(job, out, continuing=earlier_run is not None)
     log.info("job %s: %d task(s) in %s", job.title or job.source or "", len(job.tasks), folder.path)
     started = time.perf_counter()
     outcomes: list[TaskOutcome] = []
     try:
-        _run_tasks(job, folder, outcomes, keep_going, progress, started)
+        _run_tasks(job, folder, outcomes, keep_going, progress, started, earlier_run)
     except InputError:  # bad input found late (e.g. a basis PySCF does not know)
         discard_unused(folder.path)
         raise
@@ -331,7 +349,7 @@ def run_job(job: Job, *, out: str | Path | None = None, keep_going: bool = False
 
 
 def _run_tasks(job: Job, folder: RunDirectory, outcomes: list[TaskOutcome], keep_going: bool,
-               progress: bool, started: float) -> None:
+               progress: bool, started: float, earlier_run: EarlierRun | None = None) -> None:
     geometries: dict[str, Geometry] = {}
     stopped = False
     for task in job.tasks:
@@ -339,7 +357,7 @@ def _run_tasks(job: Job, folder: RunDirectory, outcomes: list[TaskOutcome], keep
             outcomes.append(TaskOutcome(name=task.name, kind=task.kind, status="not run",
                                         message="the job stopped at an earlier task"))
             continue
-        outcome = _run_one(job, task, folder, geometries, progress)
+        outcome = _run_one(job, task, folder, geometries, progress, earlier_run)
         outcomes.append(outcome)
         if outcome.result is not None and outcome.converged:  # others give no start
             geometries[task.name] = outcome.result.geometry
@@ -358,11 +376,15 @@ def _blocked(task: Any, geometries: Mapping[str, Geometry]) -> str | None:
 
 
 def _run_one(job: Job, task: Any, folder: RunDirectory, geometries: dict[str, Geometry],
-             progress: bool) -> TaskOutcome:
+             progress: bool, earlier_run: EarlierRun | None = None) -> TaskOutcome:
     blocker = _blocked(task, geometries)
     if blocker is not None:
         return TaskOutcome(name=task.name, kind=task.kind, status="skipped",
                            message=f"starts from '{blocker}', which did not converge or finish")
+    if earlier_run is not None:
+        kept = earlier_run(task, folder.path / task_folder_name(task.name))
+        if kept is not None:
+            return kept
     run_dir = folder.child(task.name)
     log.info("task %s (%s) in %s", task.name, task.kind, run_dir.path)
     step = Step(job, task.name, task.options, _start(job, task, geometries), run_dir, progress,

@@ -22,7 +22,8 @@ def method_from_dict(data: Mapping[str, Any]) -> MethodSpec:
     return MethodSpec(**clean)
 
 
-def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = None) -> TaskResult:
+def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = None,
+           engine: Any = None) -> TaskResult:
     """Reopen the run directory ``path`` and continue its task where the checkpoint left it.
 
     The continued run uses the saved Hessian, trust radius, objective state (tracked roots,
@@ -32,7 +33,8 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
     A run that stopped at its step limit (result.json with status 'step limit reached') is
     continued too, with a new budget of ``more_steps`` steps (default: the original limit);
     ``more_steps`` also extends the budget of an interrupted run. Converged or failed runs
-    are not continued.
+    are not continued. ``engine``: an engine to use instead of one built from the saved
+    method (e.g. an analytic model).
     """
     if more_steps is not None and more_steps < 1:
         raise InputError(f"the number of further steps must be >= 1, got {more_steps}")
@@ -54,13 +56,13 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
         from .relax import relax
 
         return relax(start, task["states"][0], method, options=options, run_dir=run_dir,
-                     progress=progress, resume_state=dict(data.resume_state))
+                     progress=progress, resume_state=dict(data.resume_state), engine=engine)
     if kind == "cross":
         from .crossing import find_crossing
 
         return find_crossing(start, task["states"], method, search=task.get("search", "auto"),
                              options=options, run_dir=run_dir, progress=progress,
-                             resume_state=dict(data.resume_state),
+                             resume_state=dict(data.resume_state), engine=engine,
                              gap_tolerance_eh=task.get("gap_tolerance_eh"))
     raise CheckpointError(f"{path}: cannot resume a task of kind {kind!r}")
 
