@@ -115,7 +115,8 @@ class SpinFlipEngine(EngineBase):
         self._verbose = 4 if log_path else 0
         self._held: _Held | None = None
         self._previous: dict[str, Any] = {}
-        self._continuity: dict[int, list[str]] = {}
+        self._continuity: dict[int, dict[str, str]] = {}
+        self._warned: set[tuple[str, bool]] = set()
 
     @property
     def has_couplings(self) -> bool:
@@ -274,7 +275,10 @@ class SpinFlipEngine(EngineBase):
         notes += [text for key, text in changes.items()
                   if key == "" or key in {str(lab) for lab in parse_states(labels)}]
         for text in notes:
-            logger.warning(text)
+            # on the terminal once per kind and state; every evaluation keeps its own warnings
+            key = (text.split(" ")[0].rstrip(":"), "contaminated" in text)
+            (logger.debug if key in self._warned else logger.warning)(text)
+            self._warned.add(key)
         out = evaluation.with_gradients(new, timings_s={"gradients": time.perf_counter() - start})
         fresh = tuple(t for t in notes if t not in out.warnings)
         return replace(out, warnings=out.warnings + fresh) if fresh else out
@@ -319,6 +323,7 @@ class SpinFlipEngine(EngineBase):
         self._held = None
         self._previous = {}
         self._continuity = {}
+        self._warned = set()
         if self._log is not None:
             self._log.close()
             self._log = None
