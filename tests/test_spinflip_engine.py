@@ -23,6 +23,14 @@ from surfcross.engine.base import SPIN_FLIP_DEFAULT_XC, Transition
 from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 
+try:
+    import pyscf.sftda  # noqa: F401
+    HAVE_EXTRA = True
+except ImportError:
+    HAVE_EXTRA = False
+needs_extra = pytest.mark.skipif(not HAVE_EXTRA, reason="needs the optional 'spinflip' extra "
+                                 "(pyscf-forge; see README)")
+
 # water with no symmetry, so that every gradient component is tested
 WATER = Geometry.from_angstrom(["O", "H", "H"], np.array([[0.0, 0.0, 0.0], [0.05, -0.77, 0.59],
                                                           [-0.03, 0.74, 0.57]]))
@@ -44,6 +52,11 @@ def test_method_spec_defaults_and_checks():
         MethodSpec(method="sf-tda", triplets="high-spin")
     text = Transition(4, 5, 0.9, "ab").describe()
     assert text == "5(a) -> 6(b) (0.90)"
+    # the limits the engine carries for users (contamination, reference, functional, advice)
+    from surfcross.engine.spinflip_states import SPIN_FLIP_LIMITS
+
+    for phrase in ("spin-contaminated", "reference", "functional", "multireference"):
+        assert phrase in SPIN_FLIP_LIMITS
 
 
 def test_missing_extra_is_a_one_line_input_error(monkeypatch):
@@ -52,8 +65,6 @@ def test_missing_extra_is_a_one_line_input_error(monkeypatch):
         make_engine(MethodSpec(method="sf-tda"))
 
 
-sftda = pytest.importorskip("pyscf.sftda", reason="needs the optional 'spinflip' extra "
-                            "(pyscf-forge; see README)")
 
 
 def _direct(geometry, samples, nstates=10):
@@ -77,6 +88,7 @@ def collinear():
         yield engine, engine.states(WATER)
 
 
+@needs_extra
 def test_states_match_direct_pyscf_forge(collinear):
     _, ev = collinear
     mf, td = _direct(WATER, -1)
@@ -99,6 +111,7 @@ def test_states_match_direct_pyscf_forge(collinear):
     assert ev.state("S0").transitions[0].spin == "ab"
 
 
+@needs_extra
 def test_spin_square_matches_pyscf_fci(collinear):
     from pyscf.fci import cistring, spin_op
 
@@ -141,6 +154,7 @@ def _directional_check(engine, geometry, labels, directions, h=1e-3):
     return ev
 
 
+@needs_extra
 @pytest.mark.slow
 def test_collinear_gradients_of_s0_and_s1_match_finite_differences():
     rng = np.random.default_rng(11)
@@ -150,6 +164,7 @@ def test_collinear_gradients_of_s0_and_s1_match_finite_differences():
     assert np.abs(ev.gradient("S1")).max() > 1e-2  # not a stationary point: a real check
 
 
+@needs_extra
 @pytest.mark.slow
 def test_multicollinear_energies_and_gradient():
     spec = SPEC.with_updates(spin_flip_kernel="multicollinear")
@@ -169,6 +184,7 @@ def collinear_t1_gap():
     return td.e[np.flatnonzero((s2 > 1.5) & (s2 < 2.5))[0]]
 
 
+@needs_extra
 def test_followed_contaminated_state_is_warned_about(collinear):
     engine, ev = collinear
     contaminated = [s for s in ev.manifold("T") if abs(s.spin_square - 2.0) > 0.3]
@@ -179,6 +195,7 @@ def test_followed_contaminated_state_is_warned_about(collinear):
     assert not any(w.startswith("S0:") for w in engine.gradients(ev, ["S0"]).warnings)
 
 
+@needs_extra
 def test_spin_zero_required():
     with make_engine(SPEC) as engine:
         with pytest.raises(InputError, match="spin 0"):
