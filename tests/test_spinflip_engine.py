@@ -200,3 +200,36 @@ def test_spin_zero_required():
     with make_engine(SPEC) as engine:
         with pytest.raises(InputError, match="spin 0"):
             engine.states(Geometry(WATER.symbols, WATER.coords_bohr, charge=1, spin=1))
+
+
+def test_change_of_spin_class_between_geometries_is_reported():
+    # a constructed case (no extra needed): at the previous geometry root 1 is the followed
+    # singlet S1; at the new one its best match is root 2, now triplet-like (T1)
+    from surfcross.engine.base import Evaluation, StateInfo
+    from surfcross.engine.spinflip import SpinFlipWavefunction, _class_changes
+    from surfcross.states import StateLabel
+
+    def evaluation(classes, s2, gradients=()):
+        counters = {"S": 0, "T": 1}
+        labels = []
+        for c in classes:
+            labels.append(StateLabel(c, counters[c]))
+            counters[c] += 1
+        roots = {m: tuple(k for k, c in enumerate(classes) if c == m) for m in "ST"}
+        states = tuple(StateInfo(label=labels[k], energy_eh=-1.0 + 0.1 * k, spin_square=s2[k])
+                       for m in "ST" for k in roots[m])
+        wf = SpinFlipWavefunction(symbols=WATER.symbols, coords_bohr=WATER.coords_bohr,
+                                  basis="sto-3g", mo_coeff=np.zeros((2, 1, 1)),
+                                  mo_occ=np.zeros((2, 1)), amplitudes=np.zeros((3, 1, 1)),
+                                  spin_squares=tuple(s2), roots=roots)
+        grads = {StateLabel("S", 1): np.zeros((3, 3))} if gradients else {}
+        return Evaluation(geometry=WATER, states=states, wavefunction=wf, gradients=grads)
+
+    bra = evaluation("SST", [0.05, 0.6, 1.9], gradients=True)
+    ket = evaluation("STS", [0.05, 1.2, 0.4])
+    full = np.array([[0.99, 0.0, 0.05], [0.0, 0.97, 0.1], [0.05, 0.1, 0.96]])
+    notes = _class_changes(bra, ket, full)
+    assert "T1" in notes and notes["T1"].startswith("T1 here continues S1")
+    assert "S1 (followed at the previous geometry" in notes[""]
+    assert "continues here as T1" in notes[""]
+    assert _class_changes(bra, bra, np.eye(3)) == {}
