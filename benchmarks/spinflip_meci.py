@@ -26,20 +26,23 @@ from pathlib import Path
 
 import numpy as np
 
+from surfcross.engine.spinflip_solve import import_spin_flip  # noqa: E402
+from surfcross.errors import InputError  # noqa: E402
+
+try:
+    import_spin_flip()
+except InputError as exc:
+    sys.exit(f"spinflip_meci: {exc}")
+
 TESTS = Path(__file__).resolve().parents[1] / "tests"
 sys.path.insert(0, str(TESTS))
 
-from test_casscf_meci import (_out_of_plane_degrees, _search, _twist_degrees,  # noqa: E402
-                              _twisted_pyramidalized_start)
+from test_casscf_meci import _out_of_plane_degrees, _search, _twist_degrees  # noqa: E402
+from test_spinflip_meci import spin_flip_search  # noqa: E402
 
 from surfcross.analysis.probe import plane_from_value, probe_crossing  # noqa: E402
-from surfcross.coords.cartesian import CartesianCoordinates  # noqa: E402
 from surfcross.engine import MethodSpec, make_engine  # noqa: E402
 from surfcross.geometry import rmsd  # noqa: E402
-from surfcross.objectives.projected import ProjectedSettings  # noqa: E402
-from surfcross.objectives.searches import (make_crossing_objective,  # noqa: E402
-                                           optimizer_settings_for)
-from surfcross.optimize import ConvergenceSettings, Optimizer, OptimizerSettings  # noqa: E402
 from surfcross.units import BOHR_IN_ANGSTROM  # noqa: E402
 
 
@@ -53,16 +56,9 @@ def descriptors(g) -> dict[str, float]:
             "hcc_small_deg": bends[0], "hcc_large_deg": bends[1]}
 
 
-def spin_flip_search(basis: str, grid: int):
+def run_spin_flip(basis: str, grid: int):
     engine = make_engine(MethodSpec(method="sf-tda", basis=basis, roots=1, grid_level=grid))
-    objective = make_crossing_objective(engine, ("S0", "S1"), "projected",
-                                        ProjectedSettings(plane="updated"))
-    start = _twisted_pyramidalized_start()
-    opt = Optimizer(objective, CartesianCoordinates(6, symbols=start.symbols),
-                    settings=optimizer_settings_for(objective.search,
-                                                    OptimizerSettings(max_iterations=60)),
-                    convergence=ConvergenceSettings.preset("normal"))
-    return engine, opt.run(start)
+    return engine, spin_flip_search(engine, "normal", 60)
 
 
 def main(argv=None) -> int:
@@ -73,7 +69,7 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     rows = {}
     start = time.perf_counter()
-    engine, sf = spin_flip_search(args.basis, args.grid)
+    engine, sf = run_spin_flip(args.basis, args.grid)
     sf_time = time.perf_counter() - start
     probe = probe_crossing(engine, sf.geometry, ("S0", "S1"), plane_from_value(sf.value)) \
         if sf.converged else None

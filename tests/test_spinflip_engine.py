@@ -175,7 +175,8 @@ def test_multicollinear_energies_and_gradient():
         # the M_S = 0 partner of the reference triplet lies close to the reference with the
         # multicollinear kernel (exact theory: degenerate), unlike with the collinear one
         assert abs(ev.energy("T1") - mf.e_tot) < abs(collinear_t1_gap())
-        _directional_check(engine, WATER, ["S1"], [np.random.default_rng(5).standard_normal((3, 3))])
+        direction = np.random.default_rng(5).standard_normal((3, 3))
+        _directional_check(engine, WATER, ["S1"], [direction])
 
 
 def collinear_t1_gap():

@@ -20,7 +20,6 @@ S0/S1 0.19/0.04. These are spin-flip TDA numbers in a minimal basis; they need c
 spin-adapted multireference method before any chemical conclusion.
 """
 
-import numpy as np
 import pytest
 
 pytest.importorskip("pyscf.sftda", reason="needs the optional 'spinflip' extra (pyscf-forge)")
@@ -42,16 +41,22 @@ pytestmark = pytest.mark.slow
 SPEC = MethodSpec(method="sf-tda", basis="sto-3g", roots=1, grid_level=1)
 
 
+def spin_flip_search(engine, convergence: str, max_iterations: int):
+    """S0/S1 projected search (branching-plane update) from the SA-CASSCF test's start
+    (also used by benchmarks/spinflip_meci.py)."""
+    objective = make_crossing_objective(engine, ("S0", "S1"), "projected",
+                                        ProjectedSettings(plane="updated"))
+    start = _twisted_pyramidalized_start()
+    opt = Optimizer(objective, CartesianCoordinates(6, symbols=start.symbols),
+                    settings=optimizer_settings_for(
+                        objective.search, OptimizerSettings(max_iterations=max_iterations)),
+                    convergence=ConvergenceSettings.preset(convergence))
+    return opt.run(start)
+
+
 def test_spin_flip_meci_is_twisted_pyramidalized_and_conical():
     with make_engine(SPEC) as engine:
-        objective = make_crossing_objective(engine, ("S0", "S1"), "projected",
-                                            ProjectedSettings(plane="updated"))
-        start = _twisted_pyramidalized_start()
-        opt = Optimizer(objective, CartesianCoordinates(6, symbols=start.symbols),
-                        settings=optimizer_settings_for(objective.search,
-                                                        OptimizerSettings(max_iterations=40)),
-                        convergence=ConvergenceSettings.preset("loose"))
-        result = opt.run(start)
+        result = spin_flip_search(engine, "loose", 40)
         assert result.converged, result.message
         assert result.gap_eh < 1e-3
         g = result.geometry
