@@ -31,6 +31,9 @@ from ..units import HARTREE_IN_EV
 __all__ = [
     "METHODS",
     "TRIPLET_MODES",
+    "SPIN_FLIP",
+    "SPIN_FLIP_KERNELS",
+    "SPIN_FLIP_DEFAULT_XC",
     "MethodSpec",
     "Transition",
     "StateInfo",
@@ -42,6 +45,13 @@ __all__ = [
 #: linear-response methods of the PySCF response engine; 'casscf' is the state-averaged engine
 METHODS = ("cis", "tda", "tdhf", "tddft", "casscf")
 TRIPLET_MODES = ("response", "high-spin")
+#: spin-flip TDA (engine/spinflip.py, optional extra): accepted by MethodSpec and make_engine;
+#: not yet among the command line's METHODS (the search choice and limits text come later)
+SPIN_FLIP = "sf-tda"
+SPIN_FLIP_KERNELS = ("collinear", "multicollinear")
+#: the functional spin-flip TDA uses when none is given: about 50 % exact exchange (libxc's
+#: BHandHLYP = 0.5 HF + 0.5 Becke-88 exchange + LYP correlation, the usual BHHLYP choice)
+SPIN_FLIP_DEFAULT_XC = "bhandhlyp"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -67,6 +77,10 @@ class MethodSpec:
     triplets
         'response' (T1.. from linear response of the closed-shell reference) or 'high-spin'
         (T1 is a separate M_S = 1 unrestricted SCF).
+    spin_flip_kernel
+        'sf-tda' only: 'collinear' (only exact exchange couples the spin-flipped
+        configurations) or 'multicollinear' (the functional's own spin-flip kernel, slower).
+        For 'sf-tda' ``xc`` defaults to BHandHLYP; 'none'/'hf' means Hartree-Fock exchange.
     """
 
     method: str = "tda"
@@ -85,16 +99,23 @@ class MethodSpec:
     active_space: tuple[int, int] | None = None  # (electrons, orbitals)
     active_orbitals: tuple[int, ...] | None = None  # 1-based MO indices, PySCF's convention
     state_weights: tuple[float, ...] | None = None
+    # spin-flip TDA only
+    spin_flip_kernel: str = "collinear"
 
     def __post_init__(self) -> None:
         method = self.method.lower()
         object.__setattr__(self, "method", method)
         xc = self.xc
-        if isinstance(xc, str) and xc.strip().lower() in ("", "none", "hf"):
+        hartree_fock = isinstance(xc, str) and xc.strip().lower() in ("", "none", "hf")
+        if method == SPIN_FLIP:
+            # always a string (UKS), so that copies made with replace() keep the choice
+            xc = SPIN_FLIP_DEFAULT_XC if xc is None else ("hf" if hartree_fock else xc)
+        elif hartree_fock:
             xc = None
         object.__setattr__(self, "xc", xc)
-        if method not in METHODS:
+        if method not in METHODS + (SPIN_FLIP,):
             raise InputError(f"unknown method {self.method!r}: choose one of {', '.join(METHODS)}")
+        self._check_spin_flip(method)
         if method in ("cis", "tdhf") and xc is not None:
             raise InputError(f"method {method} is Hartree-Fock based; drop the functional "
                              f"(--xc none) or use {'tda' if method == 'cis' else 'tddft'}")
@@ -116,10 +137,24 @@ class MethodSpec:
             if ne < 1 or no < 1 or ne > 2 * no:
                 raise InputError(f"active space ({ne} electrons, {no} orbitals) is impossible")
 
+    def _check_spin_flip(self, method: str) -> None:
+        if self.spin_flip_kernel not in SPIN_FLIP_KERNELS:
+            raise InputError(f"unknown spin-flip kernel {self.spin_flip_kernel!r}: choose "
+                             f"{' or '.join(SPIN_FLIP_KERNELS)}")
+        if method != SPIN_FLIP:
+            if self.spin_flip_kernel != "collinear":
+                raise InputError("a spin-flip kernel applies to method sf-tda only")
+            return
+        if self.triplets != "response":
+            raise InputError("sf-tda computes its triplets as spin-flip states; drop the "
+                             "high-spin triplet mode")
+        if self.active_space is not None or self.state_weights is not None:
+            raise InputError("active spaces and state weights belong to method casscf, not sf-tda")
+
     @property
     def reference(self) -> str:
         """'HF' or the functional name, for reports."""
-        return "HF" if self.xc is None else self.xc.upper()
+        return "HF" if self.xc is None or self.xc.lower() == "hf" else self.xc.upper()
 
     def with_updates(self, **changes: Any) -> "MethodSpec":
         return replace(self, **changes)
@@ -139,7 +174,7 @@ class Transition:
     occupied: int
     virtual: int
     weight: float  # fraction of the state's norm, 0..1
-    spin: str = ""  # '' restricted, 'a' alpha, 'b' beta
+    spin: str = ""  # '' restricted, 'a' alpha, 'b' beta, 'ab' alpha -> beta (spin flip)
 
     def describe(self, homo: int | None = None) -> str:
         """'HOMO-1 -> LUMO (0.93)' when the HOMO index is known, else MO numbers (1-based)."""
@@ -149,6 +184,8 @@ class Transition:
             if i <= homo:
                 return "HOMO" if i == homo else f"HOMO-{homo - i}"
             return "LUMO" if i == homo + 1 else f"LUMO+{i - homo - 1}"
+        if self.spin == "ab":  # spin flip: alpha occupied -> beta virtual
+            return f"{name(self.occupied)}(a) -> {name(self.virtual)}(b) ({self.weight:.2f})"
         tag = {"a": "(a)", "b": "(b)"}.get(self.spin, "")
         return f"{name(self.occupied)}{tag} -> {name(self.virtual)}{tag} ({self.weight:.2f})"
 
