@@ -34,6 +34,9 @@ CROSSING_TRUST_RADIUS = 0.1
 #: largest Hessian eigenvalue the penalty search needs (Eh/bohr^2): the curvature of F in the
 #: branching plane grows to ~2 sigma |x1|^2 / alpha, i.e. several hundred at sigma ~ 300
 PENALTY_MAX_CURVATURE = 1e4
+#: largest displacement of one atom in one step of a crossing search (bohr; common practice
+#: for searches that must not lose the pair of states they follow)
+CROSSING_MAX_ATOM_STEP = 0.3
 
 SEARCHES = ("auto", "penalty", "projected", "spin")
 
@@ -117,7 +120,8 @@ def make_crossing_objective(engine: Engine, states: Sequence[str | StateLabel],
 def optimizer_settings_for(search: str, base: Any = None) -> Any:
     """Optimizer settings suited to a crossing search (a copy of ``base`` with changes).
 
-    All searches start with a 0.1 bohr trust radius (unless ``base`` sets a smaller one). The
+    All searches start with a 0.1 bohr trust radius (unless ``base`` sets a smaller one) and
+    move no atom by more than 0.3 bohr in one step (``max_atom_step``). The
     penalty search also needs large Hessian eigenvalues to be allowed (``max_curvature``
     1e4 Eh/bohr^2): with the usual clamp of 100 the quasi-Newton model cannot follow the
     stiffness of F at large sigma and the search oscillates.
@@ -127,6 +131,9 @@ def optimizer_settings_for(search: str, base: Any = None) -> Any:
     base = OptimizerSettings() if base is None else base
     changes: dict[str, Any] = {"trust_radius": min(base.trust_radius, CROSSING_TRUST_RADIUS)}
     changes["trust_min"] = min(base.trust_min, changes["trust_radius"])
+    cap = base.max_atom_step
+    changes["max_atom_step"] = CROSSING_MAX_ATOM_STEP if cap is None else \
+        min(cap, CROSSING_MAX_ATOM_STEP)
     if search == "penalty":
         changes["max_curvature"] = max(base.max_curvature, PENALTY_MAX_CURVATURE)
     return replace(base, **changes)
