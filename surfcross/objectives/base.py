@@ -96,7 +96,8 @@ class ObjectiveValue:
         (e.g. the followed state changed character abruptly): shrink the step and retry.
     model_gradient
         Gradient whose differences between points update the quasi-Newton Hessian (composed
-        searches: the mean gradient of the pair, whose curvature the Hessian models);
+        searches: the mean gradient of the pair projected with this point's projector, whose
+        changes model the curvature within the intersection space, seam curvature included);
         defaults to ``gradient``.
     """
 

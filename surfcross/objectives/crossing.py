@@ -365,7 +365,7 @@ class CrossingObjectiveBase(abc.ABC):
             extra_criteria=(gap_criterion(pair.gap, self.settings.gap_tol_eh),),
             evaluation=pair.evaluation, tracking=pair.tracking,
             info=self._info(pair, merit_gap_weight=mu, **info),
-            model_gradient=pair.shape(pair.gbar))
+            model_gradient=pair.shape(projected))
 
     def _info(self, pair: PairEvaluation, **extra: Any) -> dict[str, Any]:
         info = {"search": self.search, "roots": [str(pair.lower), str(pair.upper)],

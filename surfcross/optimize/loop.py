@@ -13,14 +13,18 @@ still measures the curvature around the current point).
 any scalar): there is no ratio. The step uses the working Hessian
 H_w = P H P + sum_k c_k v_k v_k^T from ``value.subspace`` (P = 1 - V^T V, rebuilt at every
 step, never reused), and the quasi-Newton H is updated with y = P_new (m_new - m_old), m the
-objective's model gradient (``value.hessian_gradient``: the mean gradient of a crossing pair),
-and the projected step actually taken, P_new s. A trial is rejected when its merit rises by
+objective's model gradient (``value.hessian_gradient``: for a crossing pair the mean gradient
+projected with its own point's projector, P_k gbar_k, so the gap term stays out while the turn
+of the projector, which carries the curvature of the seam, stays in), and the projected step
+actually taken, P_new s. A trial is rejected when its merit rises by
 more than ``merit_rise_tolerance`` above the current point's merit, recomputed at the
 objective's current weights (``objective.merit(value)`` when it has that method); the radius doubles only after ``grow_after`` consecutive accepted
 steps at the boundary and shrinks on rejection. This is the documented rule for objectives that
 are not true energies; subspace models are Cartesian, so these runs need Cartesian coordinates.
 
-In both cases ``value.reject_step`` makes the trial count as rejected. A rise (of value or
+In both cases ``value.reject_step`` makes the trial count as rejected. After a rejection the
+objective may restate the current point without a new evaluation (``objective.refresh``: the
+projected crossing search learns its branching plane from a trial that turned x-hat). A rise (of value or
 merit) that a shorter step cannot cure, because the radius is already at ``trust_min`` or the
 step was shorter, is accepted with a warning in ``OptimizationResult.warnings`` (noise-level
 rises near convergence). A ``reject_step`` request that cannot be cured that way, or
@@ -305,6 +309,7 @@ class Optimizer:
                 self._learn(st, value, trial_geom, dq)
                 rec = self._record(st, trial_geom, value, accepted=False, step=step_cart,
                                    message=f"rejected: {decision.reason}")
+                self._refresh(st)
                 if stuck or st.rejections > s.max_rejections:
                     return rec, (f"{st.rejections} consecutive steps rejected "
                                  f"(last: {decision.reason}); check the objective near this geometry")
@@ -321,9 +326,10 @@ class Optimizer:
         The step is the one actually taken (the q-space difference of the two geometries,
         which differs from the requested ``dq`` after an internal-coordinate back-transformation
         or a per-atom cap); the gradient difference is that of the objective's model gradient
-        (the mean gradient of a composed crossing search, projected with the new point's
-        subspace, so neither the gap term nor the change of the projector enters the curvature
-        of the intersection space). Returns the new working and model q-gradients."""
+        (for a composed crossing search the projected mean gradient P_k gbar_k of each point,
+        the difference projected once more with the new point's subspace: the gap term does
+        not enter the curvature of the intersection space). Returns the new working and model
+        q-gradients."""
         x_new = np.asarray(geometry.coords_bohr)
         gq_new = self.coords.gradient(x_new, value.gradient)
         gm_new = self._model_gradient(x_new, value)
@@ -335,6 +341,17 @@ class Optimizer:
         H = self.update.update(st.H, s, y).hessian
         st.H = clamp_eigenvalues(H, self.settings.min_curvature, self.settings.max_curvature)
         return gq_new, gm_new
+
+    def _refresh(self, st: _State) -> None:
+        """Let the objective restate the current point after a rejected trial taught it
+        something (``objective.refresh(value)`` returns a new value or None; no evaluation)."""
+        refresh = getattr(self.objective, "refresh", None)
+        new = refresh(st.value) if callable(refresh) else None
+        if new is None:
+            return
+        st.value, st.gq = new, self.coords.gradient(st.x, new.gradient)
+        st.gm = self._model_gradient(st.x, new)
+        st.merit = self._merit(new)
 
     def _model_gradient(self, x: np.ndarray, value: ObjectiveValue) -> np.ndarray:
         return self.coords.gradient(x, value.hessian_gradient)
