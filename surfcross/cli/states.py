@@ -39,17 +39,19 @@ def format_table(rows: tuple[VerticalRow, ...]) -> str:
     """Fixed-width text table of the rows (one line per state)."""
     show_s2 = any(r.spin_square is not None for r in rows)
     show_irrep = any(r.irrep is not None for r in rows)
-    head = f"{'state':<6}" + (f"{'sym':<5}" if show_irrep else "")
-    head += f"{'dE/eV':>9}{'lambda/nm':>11}{'E/Eh':>17}{'f':>9}"
+    head = f"{'state':<6}{'dE/eV':>9}{'lambda/nm':>11}{'E/Eh':>17}{'f':>9}"
     if show_s2:
         head += f"{'<S^2>':>8}"
+    if show_irrep:
+        head += f"  {'sym':<5}"
     lines = [head + "  transitions (weight)"]
     for r in rows:
-        line = (f"{r.label:<6}" + (f"{r.irrep or '-':<5}" if show_irrep else "")
-                + f"{r.excitation_ev:>9.3f}{_number(r.wavelength_nm, '.1f'):>11}"
+        line = (f"{r.label:<6}{r.excitation_ev:>9.3f}{_number(r.wavelength_nm, '.1f'):>11}"
                 f"{r.energy_eh:>17.8f}{_number(r.oscillator_strength, '.4f'):>9}")
         if show_s2:
             line += f"{_number(r.spin_square, '.3f'):>8}"
+        if show_irrep:
+            line += f"  {r.irrep or '-':<5}"
         lines.append(line + "  " + ", ".join(r.transitions))
     return "\n".join(lines)
 
