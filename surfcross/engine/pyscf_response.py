@@ -285,6 +285,10 @@ class PySCFResponseEngine(EngineBase):
 
         return response_state_overlaps(bra, ket)
 
+    def forget_guess(self) -> None:
+        """Start the next geometry cold (no orbitals or response vectors carried over)."""
+        self._previous = {}
+
     def close(self) -> None:
         """Drop the held PySCF objects and warm-start data; close the PySCF log file."""
         self._held = None

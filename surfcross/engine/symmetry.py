@@ -132,13 +132,20 @@ def _match(symbols: Sequence[str], coords: np.ndarray, centre: np.ndarray, matri
     return tuple(perm), worst
 
 
-def _candidate_axes(coords: np.ndarray, masses: np.ndarray, centre: np.ndarray) -> list[np.ndarray]:
+def _candidate_axes(symbols, coords: np.ndarray, masses: np.ndarray, centre: np.ndarray,
+                    tol: float) -> list[np.ndarray]:
+    """Principal axes, directions to atoms, and for pairs of equivalent-looking atoms (same
+    element, same distance from the centre) their midpoint directions, differences and plane
+    normals: every two-fold axis or mirror normal of an abelian group is among them."""
     rel = coords - centre
     inertia = np.eye(3) * (masses * (rel ** 2).sum(1)).sum() - (masses[:, None] * rel).T @ rel
     axes = list(np.linalg.eigh(inertia)[1].T)
+    radius = np.linalg.norm(rel, axis=1)
+    pairs = [(a, b) for a, b in itertools.combinations(range(len(rel)), 2)
+             if symbols[a] == symbols[b] and abs(radius[a] - radius[b]) < 2 * tol]
     vectors = [r for r in rel]
-    vectors += [rel[a] + rel[b] for a, b in itertools.combinations(range(len(rel)), 2)]
-    vectors += [np.cross(rel[a], rel[b]) for a, b in itertools.combinations(range(len(rel)), 2)]
+    vectors += [rel[a] + rel[b] for a, b in pairs] + [rel[a] - rel[b] for a, b in pairs]
+    vectors += [np.cross(rel[a], rel[b]) for a, b in pairs]
     for v in vectors:
         n = np.linalg.norm(v)
         if n > 1e-3:
@@ -157,7 +164,7 @@ def _elements(symbols, coords, centre, tol) -> list[tuple[str, np.ndarray | None
     inv = _match(symbols, coords, centre, -np.eye(3), tol)
     if inv is not None:
         found.append(("i", None, SymmetryOperation("i", -np.eye(3), inv[0], centre, inv[1])))
-    for axis in _candidate_axes(coords, masses, centre):
+    for axis in _candidate_axes(symbols, coords, masses, centre, tol):
         nn = np.outer(axis, axis)
         for kind, matrix in (("C2", 2.0 * nn - np.eye(3)), ("s", np.eye(3) - 2.0 * nn)):
             hit = _match(symbols, coords, centre, matrix, tol)
@@ -178,22 +185,35 @@ def _frames(elements) -> list[np.ndarray]:
     dirs = [axis for _, axis, _ in elements if axis is not None]
     frames = []
     for a in dirs:
-        others = [b for b in dirs if abs(float(a @ b)) < 1e-3]
+        others = [b for b in dirs if abs(float(a @ b)) < 1e-2]
         for b in others or [None]:
             if b is None:
                 b = np.linalg.svd(np.atleast_2d(a))[2][1]
+            b = b - (b @ a) * a  # exactly orthonormal
+            b = b / np.linalg.norm(b)
             frames.append(np.array([a, b, np.cross(a, b)]))
     return frames or [np.eye(3)]
 
 
-def _in_frame(elements, frame: np.ndarray):
-    out = []
+def _in_frame(elements, frame: np.ndarray, symbols, coords, centre, tol):
+    """The elements along the frame's axes, each rebuilt exactly on its axis (so that the
+    operations form a group), one per kind and axis."""
+    out, seen = [], set()
     for kind, axis, op in elements:
         if axis is None:
-            out.append((kind, None, op))
-            continue
-        k = int(np.argmax(np.abs(frame @ axis)))
-        if abs(abs(float(frame[k] @ axis)) - 1.0) < 1e-3:
+            k = None
+        else:
+            k = int(np.argmax(np.abs(frame @ axis)))
+            if abs(abs(float(frame[k] @ axis)) - 1.0) > 1e-2 or (kind, k) in seen:
+                continue
+            nn = np.outer(frame[k], frame[k])
+            matrix = 2.0 * nn - np.eye(3) if kind == "C2" else np.eye(3) - 2.0 * nn
+            hit = _match(symbols, coords, centre, matrix, tol)
+            if hit is None:
+                continue
+            op = SymmetryOperation(kind, matrix, hit[0], centre, hit[1])
+        if (kind, k) not in seen:
+            seen.add((kind, k))
             out.append((kind, k, op))
     return out
 
@@ -210,7 +230,7 @@ def find_point_group(symbols: Sequence[str], coords_bohr: Any,
     elements = _elements(symbols, coords, centre, tolerance_bohr)
     best: tuple[int, str, list, np.ndarray] | None = None
     for frame in _frames(elements):
-        chosen = _in_frame(elements, frame)
+        chosen = _in_frame(elements, frame, symbols, coords, centre, tolerance_bohr)
         kinds = [k for k, _, _ in chosen]
         name = _group_name(kinds)
         order = len(TABLES[name][0])
