@@ -212,9 +212,13 @@ def test_readme_python_snippet_runs(tmp_path):
 
 @needs_exe
 def test_seam_scan_of_a_same_spin_pair(water_dir):
-    # before: each seam point (a penalty crossing of S2/S3) crashed in the characterization;
-    # water S2/S3 CIS/STO-3G cross for bond angles around 100-120 degrees (our own scenario)
-    out = _run(["scan", "water.xyz", "--coordinate", "2,1,3", "--from", "100", "--to", "120",
+    # before: each seam point (a penalty crossing of S2/S3) crashed in the characterization.
+    # Water's S2 (A2) and S3 (A1), CIS/STO-3G, cross along the symmetric stretch at 115 and
+    # 125 degrees (near 0.98 and 1.2 angstrom), but not at 100 or 110 degrees, where their
+    # gap stays above 0.02 Eh from 0.95 to 1.65 angstrom (PySCF's symmetry-blocked roots,
+    # computed for this test): a seam scan from 100 degrees has no crossing to find at its
+    # first point, and a search there runs off toward dissociation.
+    out = _run(["scan", "water.xyz", "--coordinate", "2,1,3", "--from", "115", "--to", "125",
                 "--points", "2", "--along-seam", "S2,S3", "--method", "cis", "--out", "seam"],
                water_dir)
     assert out.returncode == 0, out.stdout + out.stderr
