@@ -119,5 +119,6 @@ def test_same_spin_pair_without_coupling_under_auto(start_on_seam):
     assert np.mean(list(result.energies_eh.values())) == pytest.approx(e_min, abs=1e-7)
     assert np.abs(q_of(result) - q_min).max() < 1e-3
     assert obj.verification["verified"]
-    # the test at the end did not rest on a second direction
+    # the test at the end did not rest on a second direction, and none was found
     assert obj.verification["one_dimensional_residual_max_eh_bohr"] <= 1.5e-5
+    assert obj.verification["check"]["coupling_found"] is False

@@ -283,7 +283,8 @@ class ProjectedObjective(MeritWeighted, CrossingObjectiveBase):
         residual = np.asarray(value.test_gradient, float).ravel()
         if yhat is None:
             self._verified(pair, residual, "one-dimensional test: (1 - x-hat x-hat^T) gbar, "
-                           "which rests on no second branching direction")
+                           "which rests on no second branching direction",
+                           check=self._hidden_coupling(pair, xhat))
             return False
         source = value.info.get("plane", "")
         if source == "coupling":
@@ -328,6 +329,30 @@ class ProjectedObjective(MeritWeighted, CrossingObjectiveBase):
         log.info("projected search: the check of the branching plane turned y-hat by %.1f deg; "
                  "continuing with the corrected plane", np.degrees(np.arccos(min(1.0, abs(y_new @ yhat)))))
         return True
+
+    def _hidden_coupling(self, pair: PairEvaluation, xhat: np.ndarray) -> dict[str, Any] | None:
+        """At a point that passed the one-dimensional test: look for a second branching
+        direction along two fixed pseudo-random directions orthogonal to x-hat (a coupling
+        h shows in a random direction with about |h|/sqrt(3N) of its size). The point is
+        stationary either way (gbar is along x-hat); this says whether it is conical."""
+        if not self.pairs.same_manifold:
+            return None
+        from ..analysis.probe import second_direction_check
+
+        rng = np.random.default_rng(2010)
+        best = 0.0
+        for _ in range(2):
+            y = remove_external(rng.standard_normal(xhat.size), pair.external)
+            y = unit(y - (y @ xhat) * xhat)[0]
+            check = second_direction_check(self.pairs.engine, pair.evaluation,
+                                           (pair.lower, pair.upper), y, xhat=xhat,
+                                           step_bohr=CHECK_STEP_BOHR, external=pair.external)
+            self._extra_evaluations += check.evaluations
+            best = max(best, check.coupling_along / max(0.5 * float(np.linalg.norm(pair.x1)),
+                                                        1e-30))
+        return {"directions_tested": 2, "largest_coupling_ratio": best,
+                "coupling_found": bool(best >= COUPLING_MIN), "evaluations": 4,
+                "step_bohr": CHECK_STEP_BOHR}
 
     def _passes(self, vector: np.ndarray) -> bool:
         conv = self._convergence

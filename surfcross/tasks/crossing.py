@@ -107,6 +107,10 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     if result.value.evaluation is not None:
         warnings += list(result.value.evaluation.warnings)
     data["verification"] = verification_record(objective, result)
+    if symmetry is not None and symmetry.get("can_mix") is False:
+        data["verification"]["symmetry"] = (
+            f"One-dimensional by symmetry: no vibration of symmetry {symmetry['coupling_irrep']} "
+            f"({symmetry['point_group']}) can couple the pair.")
     if symmetry is not None:
         data["pair_symmetry"] = symmetry
     final = _final_irreps(engine, result.value.evaluation)
@@ -227,9 +231,16 @@ def verification_text(record: dict[str, Any]) -> str:
         lines.append(f"The search switched to the one-dimensional test: "
                      f"{record['switched_to_one_dimensional']}.")
     check = record.get("check")
-    if check:
+    if check and "coupling_along_y_eh_bohr" in check:
         lines.append(f"Second branching direction: coupling along it {check['coupling_along_y_eh_bohr']:.3e} "
                      f"Eh/bohr ({check['evaluations']} extra evaluations).")
+    elif check:
+        found = "found" if check["coupling_found"] else "not found"
+        lines.append(f"A second branching direction was {found} along {check['directions_tested']} "
+                     f"test directions (largest |h.y|/|g| {check['largest_coupling_ratio']:.3f}; "
+                     f"{check['evaluations']} extra evaluations).")
+    if record.get("symmetry"):
+        lines.append(record["symmetry"])
     return " ".join(lines)
 
 
