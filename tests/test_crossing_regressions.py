@@ -202,3 +202,20 @@ def test_scan_never_continues_from_a_failed_point(monkeypatch):
     assert rows[2]["started_from"] == "point 1"
     assert labels_seen[2] == ["S2", "S3"]
     assert engine.forgotten == 1
+
+
+def test_command_line_refuses_a_high_spin_triplet_with_an_excited_singlet(tmp_path):
+    import shutil
+    import subprocess
+
+    exe = shutil.which("surfcross")
+    if exe is None:
+        pytest.skip("surfcross command not installed")
+    (tmp_path / "h2co.xyz").write_text("4\nformaldehyde\nC 0 0 0\nO 0 0 1.205\n"
+                                       "H 0 0.94 -0.59\nH 0 -0.94 -0.59\n")
+    out = subprocess.run([exe, "cross", "h2co.xyz", "--states", "S1,T1", "--triplets",
+                          "high-spin", "--out", "run"], cwd=tmp_path, capture_output=True,
+                         text=True, timeout=120)
+    assert out.returncode == 2  # bad input (README: exit codes)
+    assert "--triplets response" in out.stderr and len(out.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "run").exists()  # no run folder for bad input
