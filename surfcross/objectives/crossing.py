@@ -429,8 +429,10 @@ def check_merit_weight(objective: "CrossingObjectiveBase", pair: PairEvaluation,
 
     The merit Ebar + mu dE has its minimum on the seam only while mu exceeds the Lagrange
     multiplier |gbar.x1|/|x1|^2; below it, every step toward the seam raises the merit, gets
-    rejected and the search stalls at the smallest trust radius. Raising mu at an accepted
-    point only makes the next acceptance test stricter by (mu_new - mu_old) dE, never looser.
+    rejected and the search stalls at the smallest trust radius. After a raise the optimizer
+    compares the next trial with the current point's merit recomputed at the new weight
+    (:meth:`MeritWeighted.merit`); comparing with the merit stored at the old weight would
+    count a false rise of (mu_new - mu_old) dE against every step.
     """
     n1 = float(np.linalg.norm(pair.x1))
     multiplier = abs(float(pair.gbar @ pair.x1)) / n1**2 if n1 > 0 else 0.0
