@@ -332,6 +332,18 @@ class CrossingObjectiveBase(abc.ABC):
         self.accepted_pair = pair
         self._commit(pair, payload)
 
+    def restoration(self, value: Any) -> np.ndarray | None:
+        """Displacement from a trial back to the seam along its gap direction,
+        -dE x-hat/|x1| (linear extrapolation; composed searches only), or None."""
+        entry = self._pending.get(id(value))
+        if entry is None or entry[0] is not value or value.exact_gradient:
+            return None
+        pair = entry[1]
+        n1 = float(np.linalg.norm(pair.x1))
+        if n1 < 1e-12 or pair.gap <= 0.0:
+            return None
+        return pair.shape(-(pair.gap / n1**2) * pair.x1)
+
     def pair_lost(self, pair: PairEvaluation) -> bool:
         """True when tracking is on and the trial's pair overlap fell below the threshold
         (the start geometry, which has no previous point, is never 'lost')."""

@@ -22,6 +22,9 @@ objective's current weights (``objective.merit(value)`` when it has that method)
 steps at the boundary and shrinks on rejection. This is the documented rule for objectives that
 are not true energies; subspace models are Cartesian, so these runs need Cartesian coordinates.
 
+A composed trial rejected on its merit gets one second-order correction first when the
+objective offers ``restoration(value)`` (a displacement back to the seam from the trial): the
+corrected point is evaluated and accepted if its merit is lower (see ``_corrected_trial``).
 In both cases ``value.reject_step`` makes the trial count as rejected. After a rejection the
 objective may restate the current point without a new evaluation (``objective.refresh``: the
 projected crossing search learns its branching plane from a trial that turned x-hat). A rise (of value or
@@ -53,7 +56,7 @@ from __future__ import annotations
 
 import logging
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Callable, Iterable, Iterator, Mapping
 
 import numpy as np
@@ -298,6 +301,12 @@ class Optimizer:
                 trust_max=s.trust_max, rise_tolerance=s.energy_rise_tolerance,
                 objective_rejects=value.reject_step)
         step_cart = x_new - st.x
+        if composed and not decision.accept and not value.reject_step:
+            corrected = self._corrected_trial(st, value, x_new, length)
+            if corrected is not None:
+                trial_geom, value, dq, decision = corrected
+                x_new = np.asarray(trial_geom.coords_bohr)
+                step_cart = x_new - st.x
         if not decision.accept:
             stuck = decision.trust_radius >= length * (1.0 - 1e-9)
             if stuck and not value.reject_step:
@@ -317,6 +326,42 @@ class Optimizer:
         self._accept(st, trial_geom, value, dq, step_cart, decision.trust_radius, decision.good_streak)
         return self._record(st, st.geometry, st.value, accepted=True, step=step_cart,
                             message=decision.reason), None
+
+    def _corrected_trial(self, st: _State, value: ObjectiveValue, x_new: np.ndarray,
+                         length: float):
+        """Second-order correction of a composed trial rejected on its merit.
+
+        On a curved seam a step along the intersection space opens the gap to second order
+        and the merit rejects it although the step was good (the Maratos effect of
+        constrained optimization, textbook). The objective's ``restoration(value)`` gives the
+        Cartesian displacement back to the seam from the trial (for a crossing search
+        -dE x-hat/|x1|); the corrected point is evaluated once and accepted when its merit
+        is below the current one. Returns (geometry, value, dq, decision) or None."""
+        restore = getattr(self.objective, "restoration", None)
+        r = restore(value) if callable(restore) else None
+        if r is None:
+            return None
+        dq = (x_new - st.x).ravel() + np.asarray(r, float).ravel()
+        dq = self.coords.project_step(st.x, dq)
+        try:
+            dq, x2 = self._displace(st.x, dq)
+        except (BackTransformError, InputError):
+            return None
+        if float(np.linalg.norm(dq)) > 1.5 * max(length, st.trust):
+            return None
+        value2 = self._evaluate(st.geometry.with_coords(x2))
+        if value2 is None or value2.reject_step:
+            return None
+        s = self.settings
+        decision = judge_composed_step(
+            merit_change=value2.merit_value - st.merit, step_length=length, radius=st.trust,
+            good_streak=st.streak, grow_after=s.grow_after, trust_min=s.trust_min,
+            trust_max=s.trust_max, rise_tolerance=s.merit_rise_tolerance)
+        if not decision.accept:
+            return None
+        decision = replace(decision, reason=decision.reason + " (after a correction back to "
+                                                              "the seam)")
+        return st.geometry.with_coords(x2), value2, dq, decision
 
     def _learn(self, st: _State, value: ObjectiveValue, geometry: Geometry,
                dq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
