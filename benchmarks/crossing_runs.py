@@ -142,7 +142,8 @@ def _optimizer_run(case: CrossingCase, search: str) -> dict[str, Any]:
     result = optimizer.run(case.start)
     run_s = time.perf_counter() - start
     energies = list(result.energies_eh.values())
-    return {"search": resolved, "converged": bool(result.converged),
+    roots = (result.value.info or {}).get("roots")
+    return {"search": resolved, "converged": bool(result.converged), "roots": roots,
             "status": result.status.value, "evaluations": engine.meter.states,
             "one_dimensional": resolved == "spin" if search == "auto" else None,
             "iterations": result.iterations,
@@ -188,19 +189,23 @@ def _slsqp_run(case: CrossingCase) -> dict[str, Any]:
                    options={"maxiter": case.max_iterations, "ftol": 1e-9})
     final = pair_at(res.x)
     return {"search": "slsqp", "converged": bool(res.success) and final.gap <= GAP_TOL_EH,
+            "roots": [str(final.lower), str(final.upper)],
             "status": str(res.message), "evaluations": engine.meter.states,
             "iterations": int(res.nit), "gap_eh": float(final.gap),
             "mean_energy_eh": float(final.mean_energy),
             "geometry": case.start.with_coords(np.reshape(res.x, shape))}
 
 
-def seam_residual(case: CrossingCase, geometry: Geometry | None,
-                  one_dimensional: bool) -> float | None:
-    """Search-independent residual seam gradient at a final point (see the module docstring)."""
+def seam_residual(case: CrossingCase, geometry: Geometry | None, one_dimensional: bool,
+                  roots=None) -> float | None:
+    """Search-independent residual seam gradient at a final point (see the module docstring).
+
+    ``roots``: the adiabatic roots that carried the pair at that point (the followed states
+    may sit on other roots there than their start labels)."""
     if geometry is None:
         return None
     engine = case.make_engine()
-    pairs = PairEvaluator(engine, case.states, project_external=not case.is_model)
+    pairs = PairEvaluator(engine, roots or case.states, project_external=not case.is_model)
     pair = pairs.evaluate(geometry)
     xhat = unit(pair.x1)[0]
     perp = pair.gbar - (pair.gbar @ xhat) * xhat
@@ -253,7 +258,7 @@ def run_case(case: CrossingCase, searches=SEARCH_COLUMNS) -> dict[str, Any]:
         run["rmsd_to_auto_bohr"] = _distance(geometry, ref, case.is_model)
         with quiet():
             try:
-                run["residual_eh_bohr"] = seam_residual(case, geometry, one_d)
+                run["residual_eh_bohr"] = seam_residual(case, geometry, one_d, run.get("roots"))
             except Exception as exc:  # reported, never raised
                 run["residual_eh_bohr"], run["residual_error"] = None, str(exc)
     return {"case": case.name, "states": list(case.states), "note": case.note, "runs": runs,
@@ -279,7 +284,8 @@ def run_jittered(case: CrossingCase, one_dimensional: bool,
         geometry = run.pop("geometry", None)
         with quiet():
             try:
-                run["residual_eh_bohr"] = seam_residual(moved, geometry, one_dimensional)
+                run["residual_eh_bohr"] = seam_residual(moved, geometry, one_dimensional,
+                                                        run.get("roots"))
             except Exception as exc:
                 run["residual_eh_bohr"], run["residual_error"] = None, str(exc)
         runs.append({"seed": seed, **{k: run.get(k) for k in (
