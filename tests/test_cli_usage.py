@@ -59,13 +59,16 @@ def test_hold_at_a_new_value_converges_there(water_dir):
 @needs_exe
 def test_penalty_search_on_one_spin_pair_writes_its_record(water_dir):
     # before: the characterization asked the penalty value for a branching plane (exit 2,
-    # no result.json); water S2/S3 CIS/STO-3G cross near the start (our own scenario)
+    # no result.json); water S2/S3 CIS/STO-3G cross near the start (our own scenario). Their
+    # irreps (A2, A1; water has no A2 vibration) make the crossing one-dimensional, which
+    # needs no branching plane: the penalty point is characterized by its gap direction
     out = _run(["cross", "water.xyz", "--states", "S2,S3", "--method", "cis", "--search",
                 "penalty", "--gap-tol", "5e-4", "--out", "x"], water_dir)
     assert out.returncode == 0, out.stdout + out.stderr
     data = json.loads((water_dir / "x" / "result.json").read_text())
     assert data["converged"] and data["search"] == "penalty"
-    assert any("not characterized" in w for w in data["warnings"])
+    assert data["pair_symmetry"]["can_mix"] is False
+    assert data["branching"]["kind"] == "one-dimensional"
     assert (water_dir / "x" / "report.md").exists()
 
 

@@ -336,8 +336,12 @@ class Optimizer:
         constrained optimization, textbook). The objective's ``restoration(value)`` gives the
         Cartesian displacement back to the seam from the trial (for a crossing search
         -dE x-hat/|x1|); the corrected point is evaluated once and accepted when its merit
-        is below the current one. Returns (geometry, value, dq, decision) or None."""
+        is below the current one. Only a trial that lowered the energy and opened the gap is
+        corrected. Returns (geometry, value, dq, decision) or None."""
         restore = getattr(self.objective, "restoration", None)
+        gap_t, gap_0 = value.gap_eh, st.value.gap_eh
+        if gap_t is None or gap_0 is None or not (value.value < st.value.value and gap_t > gap_0):
+            return None  # only a step that lowered the energy but opened the gap
         r = restore(value) if callable(restore) else None
         if r is None:
             return None
