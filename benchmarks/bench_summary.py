@@ -103,8 +103,33 @@ def crossing_lines(rows: list[dict]) -> list[str]:
                          if ok else "-")
         cells.append("; ".join(f"{n} {_fmt(runs[n].get('gap_eh'), '.1e')}/"
                                f"{_fmt(runs[n].get('mean_energy_eh'), '.5f')}" for n in names))
+        cells.append("; ".join(f"{n} {_fmt(runs[n].get('residual_eh_bohr'), '.1e')}"
+                               for n in names))
         body.append(cells)
+    header.append("residual seam gradient (Eh/bohr) per search")
     return ["Crossing searches (engine evaluations to converge):", ""] + _table(header, body)
+
+
+def jitter_lines(rows: list[dict], title: str, energy_key: str) -> list[str]:
+    if not rows:
+        return []
+    body = []
+    for row in rows:
+        runs = row["runs"]
+        evals = [r["evaluations"] for r in runs if r.get("evaluations") is not None]
+        residual = [r.get("residual_eh_bohr") for r in runs if r.get("residual_eh_bohr") is not None]
+        body.append([row["case"], f"{sum(bool(r['converged']) for r in runs)} of {len(runs)}",
+                     f"{min(evals)}-{max(evals)}" if evals else "-",
+                     "; ".join(_fmt(r.get(energy_key), ".6f") for r in runs),
+                     _fmt(row.get("spread_eh"), ".1e"),
+                     _fmt(max(residual), ".1e") if residual else "-",
+                     "yes" if row["same_point"] else "NO"])
+    header = ["case", "converged", "evals", "energies (Eh)", "spread (Eh)",
+              "largest residual (Eh/bohr)", "same point (spread <= 5e-4 Eh)"]
+    if not any(r["runs"] and "residual_eh_bohr" in r["runs"][0] for r in rows):
+        header.pop(5)
+        body = [b[:5] + b[6:] for b in body]
+    return [title, ""] + _table(header, body)
 
 
 def minima_lines(rows: list[dict]) -> list[str]:
@@ -164,7 +189,13 @@ def target_lines(targets: dict[str, dict]) -> list[str]:
 
 def render(results: dict[str, Any]) -> str:
     blocks = [crossing_lines(results.get("crossings", [])),
+              jitter_lines(results.get("crossing_jitter", []),
+                           "Default crossing search from 3 starts jittered by 1e-3 angstrom "
+                           "(seeds 1-3):", "mean_energy_eh"),
               minima_lines(results.get("minima", [])),
+              jitter_lines(results.get("minima_jitter", []),
+                           "Our minimizer from 3 starts jittered by 1e-3 angstrom (seeds 1-3):",
+                           "energy_eh"),
               warm_lines(results.get("warm_start", [])),
               tracking_lines(results.get("tracking", []))]
     over = results.get("overhead")

@@ -14,6 +14,18 @@ Comparators written here, not in the package:
   to the equality constraint gap = 0, in flat Cartesian coordinates (bohr), with analytic
   gradients (gbar and the gap gradient x1). Its count is the number of distinct geometries it
   asked for (function and gradient evaluations at one point share one engine call).
+
+Every final point gets the same search-independent *residual seam gradient* (not counted in
+the evaluations): for a one-dimensional crossing (different spin, the reference with a
+response state, or states no vibration can couple) the largest component of
+(1 - x-hat x-hat^T) gbar; for a conical intersection the largest component of gbar with x-hat
+and the true second branching direction removed, the latter found by central differences of
+grad(dE^2) along the part of gbar orthogonal to x-hat (two extra evaluations with gradients;
+:func:`surfcross.analysis.probe.second_direction_check`). Searches are compared at points
+where it is small.
+
+``run_jittered`` repeats the default search from starts displaced by 1e-3 angstrom (fixed
+seeds) to show that it reaches the same point from each of them.
 """
 
 from __future__ import annotations
@@ -34,13 +46,20 @@ from surfcross.objectives.projected import ProjectedSettings
 from surfcross.objectives.searches import (choose_search, make_crossing_objective,
                                            optimizer_settings_for)
 from surfcross.optimize import ConvergenceSettings, Optimizer, OptimizerSettings
+from surfcross.analysis.probe import second_direction_check
 from surfcross.tasks import RunOptions
 from surfcross.tasks.build import build_coordinates
+from surfcross.tasks.crossing import pair_symmetry
+from surfcross.states import parse_states
+from surfcross.units import BOHR_IN_ANGSTROM
 
 from bench_common import MeteredEngine, quiet
 
 SEARCH_COLUMNS = ("auto", "penalty", "projected", "plain", "slsqp")
 GAP_TOL_EH = 1e-3  # the library's default gap tolerance (objectives.crossing.GAP_TOLERANCES)
+JITTER_ANGSTROM = 1e-3
+JITTER_SEEDS = (1, 2, 3)
+SAME_POINT_EH = 5e-4  # mean energies of the jittered runs must agree to this
 
 
 @dataclass(frozen=True)
@@ -109,19 +128,24 @@ def _optimizer(case: CrossingCase, objective: Any, search: str) -> Optimizer:
 
 def _optimizer_run(case: CrossingCase, search: str) -> dict[str, Any]:
     engine = MeteredEngine(case.make_engine())
+    symmetry = None
     if search == "plain":
         objective = PlainComposedObjective(engine, case.states)
         resolved = "plain"
     else:
-        resolved = choose_search(case.states, search)
-        objective = make_crossing_objective(engine, case.states, search)
+        if search == "auto":  # what the task does: the pair's irreps at the start decide too
+            symmetry = pair_symmetry(engine, case.start, parse_states(list(case.states)))
+        resolved = choose_search(case.states, search, getattr(engine, "spec", None), symmetry)
+        objective = make_crossing_objective(engine, case.states, search, symmetry=symmetry)
     optimizer = _optimizer(case, objective, resolved)
     start = time.perf_counter()
     result = optimizer.run(case.start)
     run_s = time.perf_counter() - start
     energies = list(result.energies_eh.values())
-    return {"search": resolved, "converged": bool(result.converged),
+    roots = (result.value.info or {}).get("roots")
+    return {"search": resolved, "converged": bool(result.converged), "roots": roots,
             "status": result.status.value, "evaluations": engine.meter.states,
+            "one_dimensional": resolved == "spin" if search == "auto" else None,
             "iterations": result.iterations,
             "gap_eh": None if result.gap_eh is None else float(result.gap_eh),
             "mean_energy_eh": float(np.mean(energies)) if energies else None,
@@ -165,10 +189,36 @@ def _slsqp_run(case: CrossingCase) -> dict[str, Any]:
                    options={"maxiter": case.max_iterations, "ftol": 1e-9})
     final = pair_at(res.x)
     return {"search": "slsqp", "converged": bool(res.success) and final.gap <= GAP_TOL_EH,
+            "roots": [str(final.lower), str(final.upper)],
             "status": str(res.message), "evaluations": engine.meter.states,
             "iterations": int(res.nit), "gap_eh": float(final.gap),
             "mean_energy_eh": float(final.mean_energy),
             "geometry": case.start.with_coords(np.reshape(res.x, shape))}
+
+
+def seam_residual(case: CrossingCase, geometry: Geometry | None, one_dimensional: bool,
+                  roots=None) -> float | None:
+    """Search-independent residual seam gradient at a final point (see the module docstring).
+
+    ``roots``: the adiabatic roots that carried the pair at that point (the followed states
+    may sit on other roots there than their start labels)."""
+    if geometry is None:
+        return None
+    engine = case.make_engine()
+    pairs = PairEvaluator(engine, roots or case.states, project_external=not case.is_model)
+    pair = pairs.evaluate(geometry)
+    xhat = unit(pair.x1)[0]
+    perp = pair.gbar - (pair.gbar @ xhat) * xhat
+    if one_dimensional or np.linalg.norm(perp) < 1e-12:
+        return float(np.abs(perp).max())
+    check = second_direction_check(engine, pair.evaluation, (pair.lower, pair.upper), perp,
+                                   xhat=xhat, external=pair.external)
+    y = check.vector - (check.vector @ xhat) * xhat
+    n = np.linalg.norm(y)
+    if n < 1e-14:
+        return float(np.abs(perp).max())
+    y /= n
+    return float(np.abs(perp - (perp @ y) * y).max())
 
 
 def run_one(case: CrossingCase, search: str) -> dict[str, Any]:
@@ -192,10 +242,58 @@ def _distance(a: Geometry | None, b: Geometry | None, is_model: bool) -> float |
     return float(rmsd(a.coords_bohr, b.coords_bohr, align=not is_model))
 
 
+def _one_dimensional(runs: dict[str, Any]) -> bool:
+    flag = runs.get("auto", {}).get("one_dimensional")
+    return bool(flag)
+
+
 def run_case(case: CrossingCase, searches=SEARCH_COLUMNS) -> dict[str, Any]:
-    """Every search on one case; distances are to the point the default search reached."""
+    """Every search on one case; distances are to the point the default search reached;
+    every final point gets the search-independent residual seam gradient."""
     runs = {name: run_one(case, name) for name in searches}
     ref = runs.get("auto", {}).get("geometry")
+    one_d = _one_dimensional(runs)
     for run in runs.values():
-        run["rmsd_to_auto_bohr"] = _distance(run.pop("geometry"), ref, case.is_model)
-    return {"case": case.name, "states": list(case.states), "note": case.note, "runs": runs}
+        geometry = run.pop("geometry")
+        run["rmsd_to_auto_bohr"] = _distance(geometry, ref, case.is_model)
+        with quiet():
+            try:
+                run["residual_eh_bohr"] = seam_residual(case, geometry, one_d, run.get("roots"))
+            except Exception as exc:  # reported, never raised
+                run["residual_eh_bohr"], run["residual_error"] = None, str(exc)
+    return {"case": case.name, "states": list(case.states), "note": case.note, "runs": runs,
+            "one_dimensional": one_d}
+
+
+def jitter(geometry: Geometry, seed: int, size_angstrom: float = JITTER_ANGSTROM) -> Geometry:
+    """``geometry`` with every coordinate moved by up to ``size_angstrom`` (uniform, seeded)."""
+    rng = np.random.default_rng(seed)
+    shift = size_angstrom / BOHR_IN_ANGSTROM * rng.uniform(-1.0, 1.0, geometry.coords_bohr.shape)
+    return geometry.with_coords(geometry.coords_bohr + shift)
+
+
+def run_jittered(case: CrossingCase, one_dimensional: bool,
+                 seeds=JITTER_SEEDS) -> dict[str, Any]:
+    """The default search from jittered starts: same point (mean energies within 5e-4 Eh)?"""
+    runs = []
+    for seed in seeds:
+        moved = CrossingCase(name=case.name, make_engine=case.make_engine, states=case.states,
+                             start=jitter(case.start, seed), is_model=case.is_model,
+                             max_iterations=case.max_iterations)
+        run = run_one(moved, "auto")
+        geometry = run.pop("geometry", None)
+        with quiet():
+            try:
+                run["residual_eh_bohr"] = seam_residual(moved, geometry, one_dimensional,
+                                                        run.get("roots"))
+            except Exception as exc:
+                run["residual_eh_bohr"], run["residual_error"] = None, str(exc)
+        runs.append({"seed": seed, **{k: run.get(k) for k in (
+            "converged", "evaluations", "mean_energy_eh", "gap_eh", "residual_eh_bohr",
+            "search", "status")}})
+    energies = [r["mean_energy_eh"] for r in runs if r["mean_energy_eh"] is not None]
+    spread = (max(energies) - min(energies)) if len(energies) == len(runs) else None
+    same = bool(all(r["converged"] for r in runs) and spread is not None
+                and spread <= SAME_POINT_EH)
+    return {"case": case.name, "jitter_angstrom": JITTER_ANGSTROM, "runs": runs,
+            "spread_eh": spread, "same_point": same}

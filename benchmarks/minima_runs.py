@@ -135,6 +135,25 @@ def run_one(case: MinimumCase, name: str) -> dict[str, Any]:
     return out
 
 
+def run_jittered(case: MinimumCase, seeds=(1, 2, 3), size_angstrom: float = 1e-3) -> dict[str, Any]:
+    """Our minimizer from starts jittered by up to ``size_angstrom`` (fixed seeds)."""
+    from crossing_runs import SAME_POINT_EH, jitter
+
+    runs = []
+    for seed in seeds:
+        moved = MinimumCase(name=case.name, make_engine=case.make_engine, state=case.state,
+                            start=jitter(case.start, seed, size_angstrom), method=case.method)
+        run = run_one(moved, "ours")
+        runs.append({"seed": seed, **{k: run.get(k) for k in ("converged", "evaluations",
+                                                               "energy_eh", "status")}})
+    energies = [r["energy_eh"] for r in runs if r["energy_eh"] is not None]
+    spread = (max(energies) - min(energies)) if len(energies) == len(runs) else None
+    return {"case": case.name, "jitter_angstrom": size_angstrom, "runs": runs,
+            "spread_eh": spread,
+            "same_point": bool(all(r["converged"] for r in runs) and spread is not None
+                               and spread <= SAME_POINT_EH)}
+
+
 def run_case(case: MinimumCase, names=MINIMUM_COLUMNS) -> dict[str, Any]:
     return {"case": case.name, "state": case.state, "note": case.note,
             "runs": {name: run_one(case, name) for name in names}}

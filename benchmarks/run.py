@@ -51,6 +51,13 @@ def _section(items: list, run: Callable[[Any], dict], label: str, verbose: bool)
     return out
 
 
+def _timed(run: Callable[[], dict], label: str, verbose: bool) -> dict:
+    start = time.perf_counter()
+    out = run()
+    _say(f"  {label} ({time.perf_counter() - start:.1f} s)", verbose)
+    return out
+
+
 def overhead(crossings: list[dict], minima: list[dict]) -> dict[str, Any] | None:
     """Share of wall time outside states+gradients, over molecular runs of our own code."""
     wall = engine = overlaps = 0.0
@@ -99,10 +106,17 @@ def run(mode: str, verbose: bool = True) -> dict[str, Any]:
     results["crossings"] = _section(crossing_cases, crossing_runs.run_case, "crossing", verbose)
     for row, case in zip(results["crossings"], crossing_cases):
         row["is_model"] = case.is_model
+    _say("crossing searches from jittered starts", verbose)
+    results["crossing_jitter"] = [
+        _timed(lambda c=case, r=row: crossing_runs.run_jittered(c, r["one_dimensional"]),
+               f"jittered crossing: {case.name}", verbose)
+        for row, case in zip(results["crossings"], crossing_cases)]
     if mode != "models":
         _say("minima", verbose)
-        results["minima"] = _section(cases.minimum_suite(mode), minima_runs.run_case,
-                                     "minimum", verbose)
+        minimum_cases = cases.minimum_suite(mode)
+        results["minima"] = _section(minimum_cases, minima_runs.run_case, "minimum", verbose)
+        results["minima_jitter"] = _section(minimum_cases, minima_runs.run_jittered,
+                                            "jittered minimum", verbose)
         _say("warm starts", verbose)
         results["warm_start"] = _section(cases.warm_suite(mode), engine_costs.run_path,
                                          "path", verbose)

@@ -15,7 +15,9 @@ vector h from the engine, and with the branching-plane update that needs no coup
 
 Observed here (STO-3G, for the record, not asserted): twist 76 degrees, one carbon 56 degrees
 out of plane with one hydrogen bent toward the other carbon (H-C-C 70 degrees), C-C 1.416
-angstrom, 24 evaluations with couplings and 26 with the plane update. From a start with
+angstrom; 24 evaluations with couplings and 26 with the plane update before the plane had to
+be verified (no plane vector before the gap direction turns, a finite-difference check of it
+at convergence): 49 now, recorded as a test property and not asserted. From a start with
 exact mirror symmetry the coupling search stops on a symmetric stationary point of the seam
 about 0.03 Eh higher (twist 90, pyramidalization 84 degrees), which the plane-update search
 leaves: SA-CASSCF seams of ethylene have several stationary points, so results depend on the
@@ -129,4 +131,3 @@ def test_plane_update_search_reaches_the_same_intersection(coupling_search, reco
     assert rmsd(result.geometry.coords_bohr, reference.geometry.coords_bohr) * BOHR_IN_ANGSTROM < 0.02
     e_ref = np.mean(list(reference.energies_eh.values()))
     assert np.mean(list(result.energies_eh.values())) == pytest.approx(e_ref, abs=2e-4)
-    assert result.evaluations < 40

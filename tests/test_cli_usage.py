@@ -59,13 +59,16 @@ def test_hold_at_a_new_value_converges_there(water_dir):
 @needs_exe
 def test_penalty_search_on_one_spin_pair_writes_its_record(water_dir):
     # before: the characterization asked the penalty value for a branching plane (exit 2,
-    # no result.json); water S2/S3 CIS/STO-3G cross near the start (our own scenario)
+    # no result.json); water S2/S3 CIS/STO-3G cross near the start (our own scenario). Their
+    # irreps (A2, A1; water has no A2 vibration) make the crossing one-dimensional, which
+    # needs no branching plane: the penalty point is characterized by its gap direction
     out = _run(["cross", "water.xyz", "--states", "S2,S3", "--method", "cis", "--search",
                 "penalty", "--gap-tol", "5e-4", "--out", "x"], water_dir)
     assert out.returncode == 0, out.stdout + out.stderr
     data = json.loads((water_dir / "x" / "result.json").read_text())
     assert data["converged"] and data["search"] == "penalty"
-    assert any("not characterized" in w for w in data["warnings"])
+    assert data["pair_symmetry"]["can_mix"] is False
+    assert data["branching"]["kind"] == "one-dimensional"
     assert (water_dir / "x" / "report.md").exists()
 
 
@@ -212,12 +215,13 @@ def test_readme_python_snippet_runs(tmp_path):
 
 @needs_exe
 def test_seam_scan_of_a_same_spin_pair(water_dir):
-    # before: each seam point (a penalty crossing of S2/S3) crashed in the characterization;
-    # water S2/S3 CIS/STO-3G cross for bond angles around 100-120 degrees (our own scenario).
-    # From 110: at 100 the seam search stretches both O-H bonds to ~2 angstrom, where the RHF
-    # reference converges or not depending on the last bits (numpy 2.3 vs 2.4); from 110 the
-    # bonds stay below 1.4 angstrom
-    out = _run(["scan", "water.xyz", "--coordinate", "2,1,3", "--from", "110", "--to", "120",
+    # before: each seam point (a penalty crossing of S2/S3) crashed in the characterization.
+    # Water's S2 (A2) and S3 (A1), CIS/STO-3G, cross along the symmetric stretch at 115 and
+    # 125 degrees (near 0.98 and 1.2 angstrom), but not at 100 or 110 degrees, where their
+    # gap stays above 0.02 Eh from 0.95 to 1.65 angstrom (PySCF's symmetry-blocked roots,
+    # computed for this test): a seam scan from 100 degrees has no crossing to find at its
+    # first point, and a search there runs off toward dissociation.
+    out = _run(["scan", "water.xyz", "--coordinate", "2,1,3", "--from", "115", "--to", "125",
                 "--points", "2", "--along-seam", "S2,S3", "--method", "cis", "--out", "seam"],
                water_dir)
     assert out.returncode == 0, out.stdout + out.stderr

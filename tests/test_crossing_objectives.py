@@ -112,13 +112,22 @@ def test_plane_update_properties():
     assert np.allclose(same, y0)
 
 
-def test_updated_plane_is_committed_only_on_accept():
+def test_updated_plane_is_established_by_a_turn_and_committed_only_on_accept():
+    # the plane update (Maeda et al. 2010) has no information at the first point: its first y
+    # (the mean gradient orthogonalized to x-hat) would make the projected gradient vanish
+    # there by construction, so no y is used until x-hat has turned
     obj = ProjectedObjective(conical_model(), ("S1", "S2"), ProjectedSettings(plane="updated"))
     first = obj.evaluate(model_geometry(Q))
+    assert first.subspace.directions.shape[0] == 1  # x-hat only
+    pair = obj.last_pair
+    xhat = pair.x1 / np.linalg.norm(pair.x1)
+    one_d = pair.gbar - (pair.gbar @ xhat) * xhat
+    assert np.allclose(first.test_gradient.ravel(), one_d)  # tested with 1 - x-hat x-hat^T
     obj.accept(first)
-    committed = obj.y_prev.copy()
+    assert obj.y_prev is None
     trial = obj.evaluate(model_geometry(Q + 0.05))
-    assert np.allclose(obj.y_prev, committed)  # a trial does not move the plane
+    assert trial.subspace.directions.shape[0] == 2  # x-hat turned: the plane is known
+    assert obj.y_prev is None  # a trial does not move the plane
     obj.accept(trial)
     assert np.allclose(obj.y_prev, trial.subspace.directions[1])
     with pytest.raises(InputError):

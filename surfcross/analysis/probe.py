@@ -39,7 +39,8 @@ from ..errors import InputError
 from ..geometry import Geometry
 from ..states import StateLabel, parse_state
 
-__all__ = ["ProbeSettings", "ProbeResult", "probe_crossing", "plane_from_value"]
+__all__ = ["ProbeSettings", "ProbeResult", "probe_crossing", "plane_from_value",
+           "DirectionCheck", "second_direction_check"]
 
 VERDICTS = ("conical", "one-dimensional", "avoided")
 
@@ -122,12 +123,13 @@ def _orthonormal(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 class _GapMeter:
     """Gap of the pair at displaced geometries, matching roots to the centre by overlap."""
 
-    def __init__(self, engine: Engine, geometry: Geometry, labels: Sequence[StateLabel]) -> None:
+    def __init__(self, engine: Engine, geometry: Geometry, labels: Sequence[StateLabel],
+                 centre: Evaluation | None = None) -> None:
         self.engine = engine
         self.geometry = geometry
         self.labels = labels
-        self.centre = engine.states(geometry)
-        self.count = 1
+        self.centre = engine.states(geometry) if centre is None else centre
+        self.count = 1 if centre is None else 0
 
     def gap(self, displacement: np.ndarray) -> float:
         coords = self.geometry.coords_bohr + displacement.reshape(self.geometry.natom, 3)
@@ -135,6 +137,17 @@ class _GapMeter:
         self.count += 1
         e = [ev.energy(r) for r in self._match(ev)]
         return abs(e[1] - e[0])
+
+    def gap_gradient_of_square(self, displacement: np.ndarray) -> np.ndarray:
+        """grad(dE^2) = 2 dE (g_upper - g_lower) of the pair at a displaced geometry, flat."""
+        coords = self.geometry.coords_bohr + displacement.reshape(self.geometry.natom, 3)
+        ev = self.engine.states(self.geometry.with_coords(coords))
+        self.count += 1
+        roots = sorted(self._match(ev), key=ev.energy)
+        ev = self.engine.gradients(ev, roots)
+        gap = ev.energy(roots[1]) - ev.energy(roots[0])
+        x1 = np.asarray(ev.gradient(roots[1]), float) - np.asarray(ev.gradient(roots[0]), float)
+        return 2.0 * gap * x1.ravel()
 
     def centre_gap(self) -> float:
         return abs(self.centre.energy(self.labels[1]) - self.centre.energy(self.labels[0]))
@@ -225,3 +238,83 @@ def _verdict(gap0: float, q: list[float], orders: list[float],
                                    "non-interacting states (different spin or symmetry) or of "
                                    "the wrong topology")
     return "avoided", "the gap does not open linearly in any direction"
+
+
+@dataclass(frozen=True, kw_only=True)
+class DirectionCheck:
+    """Outcome of :func:`second_direction_check`.
+
+    Attributes
+    ----------
+    vector
+        (Hessian of dE^2) . y, flat (3N,), Eh^2/bohr^2, rigid-body part removed.
+    direction
+        ``vector`` normalized (zeros when it vanishes).
+    coupling_along
+        sqrt(y . vector / 8): the estimate of |h . y| (Eh/bohr, h the interstate coupling
+        vector); about 0 when y carries no coupling.
+    evaluations
+        Engine evaluations used (two, with gradients of both states).
+    """
+
+    vector: np.ndarray = field(repr=False)
+    direction: np.ndarray = field(repr=False)
+    coupling_along: float
+    evaluations: int
+
+
+def second_direction_check(engine: Engine, centre: Evaluation, labels: Sequence[str | StateLabel],
+                           direction: Any, *, xhat: Any = None, step_bohr: float = 0.005,
+                           external: np.ndarray | None = None) -> DirectionCheck:
+    """Independent check of a second branching-plane direction y by finite differences.
+
+    Near an intersection the linear model gives dE^2 = 4[(g.r)^2 + (h.r)^2] (half-difference
+    g), so the Hessian of dE^2 is M = 8(g g^T + h h^T) (a rank-two matrix spanning the
+    branching plane) and, with grad(dE^2) = 2 dE x1 from analytic gradients,
+
+        M y ~ [grad dE^2(+delta y) - grad dE^2(-delta y)] / (2 delta).
+
+    For y orthogonal to x-hat this is 8 h (h.y) (plus 8 g (g.y), which vanishes when x-hat is
+    along g): it points along the true second direction whenever y has any part of it, and
+    it is ~0 at a one-dimensional crossing (states that do not couple), where
+    dE^2 = (x1.r)^2 has no second direction. The central difference removes the residual gap
+    of the centre and the term linear in the offset (the same reason as the probe's Q).
+
+    Parameters
+    ----------
+    engine, centre
+        The engine and its evaluation at the centre (roots matched to it by overlap).
+    labels
+        The pair's adiabatic labels at the centre.
+    direction
+        y, any shape with 3N entries (normalized here).
+    xhat
+        The gap direction; when given, y is orthogonalized to it first.
+    step_bohr
+        delta (bohr).
+    external
+        Rigid-body basis (k, 3N) to remove from the result, or None.
+
+    Limits: assumes the centre gap is far below (h.y)^2 / (curvature of dE along y); a
+    residual gap of 1e-3 Eh and a gap curvature of 0.5 Eh/bohr^2 look like a coupling of
+    about 0.01 Eh/bohr.
+    """
+    pair = [parse_state(x) for x in labels]
+    y = np.asarray(direction, float).ravel()
+    if xhat is not None:
+        x = np.asarray(xhat, float).ravel()
+        y = y - (y @ x) * x
+    norm = float(np.linalg.norm(y))
+    if norm < 1e-12:
+        raise InputError("the direction to check is zero (or parallel to the gap direction)")
+    y = y / norm
+    meter = _GapMeter(engine, centre.geometry, pair, centre=centre)
+    plus = meter.gap_gradient_of_square(step_bohr * y)
+    minus = meter.gap_gradient_of_square(-step_bohr * y)
+    vec = (plus - minus) / (2.0 * step_bohr)
+    if external is not None and np.size(external):
+        vec = vec - external.T @ (external @ vec)
+    n = float(np.linalg.norm(vec))
+    along = math.sqrt(max(float(y @ vec), 0.0) / 8.0)
+    return DirectionCheck(vector=vec, direction=vec / n if n > 0 else np.zeros_like(vec),
+                          coupling_along=along, evaluations=meter.count)

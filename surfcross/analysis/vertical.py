@@ -28,10 +28,12 @@ class VerticalRow:
     oscillator_strength: float | None
     spin_square: float | None
     transitions: tuple[str, ...]
+    irrep: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return {
             "label": self.label,
+            "irrep": self.irrep,
             "energy_eh": self.energy_eh,
             "excitation_ev": self.excitation_ev,
             "wavelength_nm": self.wavelength_nm,
@@ -66,6 +68,7 @@ def _row(evaluation: Evaluation, state: StateInfo) -> VerticalRow:
         oscillator_strength=state.oscillator_strength,
         spin_square=state.spin_square,
         transitions=tuple(t.describe(homos.get(t.spin)) for t in state.transitions),
+        irrep=state.irrep,
     )
 
 
@@ -96,6 +99,7 @@ def vertical_summary(evaluation: Evaluation, spec: MethodSpec, *,
         "charge": geom.charge,
         "spin": geom.spin,
         "method": spec.to_dict(),
+        "point_group": evaluation.point_group,
         "states": [r.to_dict() for r in vertical_rows(evaluation)],
         "warnings": list(evaluation.warnings),
         "scf_cycles": evaluation.scf_cycles,

@@ -8,6 +8,7 @@ from ..objectives.searches import SEARCHES
 from ..states import parse_states
 from ..tasks import find_crossing
 from ..tasks.common import prepare_method
+from ..tasks.crossing import check_high_spin_pair
 from .options import (add_geometry_argument, add_method_options, add_run_options,
                       geometry_from_args, method_from_args, open_run_dir, run_options_from_args)
 from .summary import exit_code, print_summary
@@ -39,6 +40,7 @@ def run(args: argparse.Namespace) -> int:
     labels = parse_states(args.states, count=2)
     geometry = geometry_from_args(args)
     spec = prepare_method(method_from_args(args), labels)
+    check_high_spin_pair(labels, spec)  # before any folder is made
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "cross")
     result = find_crossing(geometry, labels, spec, search=args.search, options=options,

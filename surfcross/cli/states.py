@@ -44,15 +44,20 @@ def _number(value: float | None, fmt: str) -> str:
 def format_table(rows: tuple[VerticalRow, ...]) -> str:
     """Fixed-width text table of the rows (one line per state)."""
     show_s2 = any(r.spin_square is not None for r in rows)
+    show_irrep = any(r.irrep is not None for r in rows)
     head = f"{'state':<6}{'dE/eV':>9}{'lambda/nm':>11}{'E/Eh':>17}{'f':>9}"
     if show_s2:
         head += f"{'<S^2>':>8}"
+    if show_irrep:
+        head += f"  {'sym':<5}"
     lines = [head + "  transitions (weight)"]
     for r in rows:
         line = (f"{r.label:<6}{r.excitation_ev:>9.3f}{_number(r.wavelength_nm, '.1f'):>11}"
                 f"{r.energy_eh:>17.8f}{_number(r.oscillator_strength, '.4f'):>9}")
         if show_s2:
             line += f"{_number(r.spin_square, '.3f'):>8}"
+        if show_irrep:
+            line += f"  {r.irrep or '-':<5}"
         lines.append(line + "  " + ", ".join(r.transitions))
     return "\n".join(lines)
 
@@ -93,6 +98,9 @@ def run(args: argparse.Namespace) -> int:
     engine = make_engine(spec, **kwargs)
     try:
         evaluation = engine.states(geometry)
+        with_irreps = getattr(engine, "with_irreps", None)
+        if callable(with_irreps):  # point-group labels, in the input frame
+            evaluation = with_irreps(evaluation)
     finally:
         engine.close()
     couplings = None
@@ -107,8 +115,9 @@ def run(args: argparse.Namespace) -> int:
         json.dump(summary, sys.stdout, indent=2)
         sys.stdout.write("\n")
         return 0
+    group = f"  point group {evaluation.point_group}" if evaluation.point_group else ""
     print(f"{spec.method.upper()}/{spec.reference}/{spec.basis}  charge {geometry.charge}  "
-          f"spin (2S) {geometry.spin}  {len(evaluation.states)} states  "
+          f"spin (2S) {geometry.spin}{group}  {len(evaluation.states)} states  "
           f"(SCF cycles {evaluation.scf_cycles}, response iterations "
           f"{evaluation.response_iterations})")
     print(format_table(vertical_rows(evaluation)))

@@ -194,7 +194,9 @@ class Transition:
 class StateInfo:
     """One computed state at one geometry.
 
-    ``root`` is the adiabatic index inside the manifold (equal to ``label.index``).
+    ``root`` is the adiabatic index inside the manifold (equal to ``label.index``). ``irrep``
+    is the state's irreducible representation in the geometry's abelian point group
+    (``Evaluation.point_group``) when it was determined (see ``engine.symmetry``), else None.
     """
 
     label: StateLabel
@@ -203,6 +205,7 @@ class StateInfo:
     spin_square: float | None = None
     transitions: tuple[Transition, ...] = ()
     converged: bool = True
+    irrep: str | None = None
 
 
 @dataclass(frozen=True)
@@ -236,6 +239,11 @@ class Evaluation:
     timings_s: Mapping[str, float] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
     homo: int | None = None  # 0-based index of the highest occupied MO (restricted)
+    point_group: str | None = None  # abelian point group of the irreps in ``states``, if found
+
+    def irreps(self) -> dict[str, str | None]:
+        """{label: irrep or None} of every computed state (all None without symmetry)."""
+        return {str(s.label): s.irrep for s in self.states}
 
     @property
     def labels(self) -> tuple[StateLabel, ...]:

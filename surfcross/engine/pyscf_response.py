@@ -264,12 +264,30 @@ class PySCFResponseEngine(EngineBase):
                               f"{self.spec.method}/{self.spec.reference}: {exc}") from None
         return np.array(value, float)
 
+    # ------------------------------------------------------------------ symmetry
+    def with_irreps(self, evaluation: Evaluation, tolerance_bohr: float | None = None) -> Evaluation:
+        """``evaluation`` with its point group and the irrep of every state (input frame; the
+        surfaces are not touched, see :mod:`surfcross.engine.symmetry`)."""
+        from .symmetry import TOLERANCE_BOHR, find_point_group, label_irreps, state_irreps
+
+        geometry = evaluation.geometry
+        tol = TOLERANCE_BOHR if tolerance_bohr is None else tolerance_bohr
+        group = find_point_group(geometry.symbols, geometry.coords_bohr, tol)
+        if group.name == "C1":
+            return label_irreps(evaluation, {s.label: "A" for s in evaluation.states}, group)
+        mol = build_molecule(geometry, self.spec, geometry.spin, None, 0)
+        return label_irreps(evaluation, state_irreps(evaluation, group, mol), group)
+
     # ------------------------------------------------------------------ the rest
     def overlaps(self, bra: Evaluation, ket: Evaluation) -> dict[str, np.ndarray]:
         """Wavefunction overlaps per manifold (delegated to the overlap module)."""
         from .pyscf_overlap import response_state_overlaps
 
         return response_state_overlaps(bra, ket)
+
+    def forget_guess(self) -> None:
+        """Start the next geometry cold (no orbitals or response vectors carried over)."""
+        self._previous = {}
 
     def close(self) -> None:
         """Drop the held PySCF objects and warm-start data; close the PySCF log file."""

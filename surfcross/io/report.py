@@ -116,12 +116,17 @@ def _energy_section(result: Mapping[str, Any]) -> list[str]:
         return ["No energies were recorded."]
     ref = reference_label(energies)
     targets = set(result.get("target_energies_eh") or {}) | set(result.get("states") or [])
+    irreps = result.get("irreps") or {}
     rows = [(f"**{label}**" if label in targets else label, f"{e:.10f}",
              f"{(e - energies[ref]) * HARTREE_IN_EV:.4f}")
+            + ((irreps.get(label) or "-",) if irreps else ())
             for label, e in energies.items()]
     lines = [f"Energies at the final geometry (eV relative to {ref}; followed states in bold). "
              "Labels of all computed states are adiabatic (energy order) at this geometry."]
-    lines += [""] + _table(("state", "energy / Eh", f"above {ref} / eV"), rows)
+    header = ("state", "energy / Eh", f"above {ref} / eV")
+    if irreps:
+        header += (f"irrep ({result.get('point_group', '?')})",)
+    lines += [""] + _table(header, rows)
     gap = result.get("gap_ev")
     if gap is not None:
         gap_eh = result.get("gap_eh", gap / HARTREE_IN_EV)

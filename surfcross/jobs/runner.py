@@ -293,6 +293,10 @@ def validate_job(job: Job) -> None:
             labels = parse_states(task_labels(task.kind, task.options))
             check_labels(job.molecule, labels)
             prepare_method(job.method, labels)
+            if task.kind == "cross" or (task.kind == "scan" and task.options.get("along_seam")):
+                from ..tasks.crossing import check_high_spin_pair
+
+                check_high_spin_pair(labels, job.method)
             if task.kind in ("relax", "cross", "emission", "scan"):
                 run_options_from_task(task.options)
         except InputError as exc:

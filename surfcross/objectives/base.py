@@ -94,6 +94,11 @@ class ObjectiveValue:
     reject_step
         True when the objective asks the optimizer to treat this trial geometry as rejected
         (e.g. the followed state changed character abruptly): shrink the step and retry.
+    model_gradient
+        Gradient whose differences between points update the quasi-Newton Hessian (composed
+        searches: the mean gradient of the pair projected with this point's projector, whose
+        changes model the curvature within the intersection space, seam curvature included);
+        defaults to ``gradient``.
     """
 
     value: float
@@ -109,6 +114,7 @@ class ObjectiveValue:
     tracking: Any = None
     info: Mapping[str, Any] = field(default_factory=dict)
     reject_step: bool = False
+    model_gradient: np.ndarray | None = None
 
     @property
     def merit_value(self) -> float:
@@ -117,6 +123,10 @@ class ObjectiveValue:
     @property
     def test_gradient(self) -> np.ndarray:
         return self.gradient if self.convergence_gradient is None else self.convergence_gradient
+
+    @property
+    def hessian_gradient(self) -> np.ndarray:
+        return self.gradient if self.model_gradient is None else self.model_gradient
 
 
 @runtime_checkable
@@ -135,8 +145,9 @@ class Objective(Protocol):
     def after_convergence(self, value: ObjectiveValue) -> bool:
         """Called when every criterion passed. Return True if the objective changed its
         definition (e.g. a larger penalty weight) and the loop must continue: the optimizer
-        then re-evaluates at the same geometry and resets its Hessian along
-        ``value.subspace``/the new gradient as documented in ``optimize``."""
+        then re-evaluates at the same geometry; see ``optimize.loop`` for what happens to the
+        Hessian (optional hooks ``adjust_hessian``, ``merit``, ``consume_evaluations`` and
+        ``use_convergence`` are documented there)."""
 
     def state_dict(self) -> dict[str, Any]:
         """JSON/HDF5-able state needed to resume (sigma, branching-plane vector, roots)."""

@@ -283,6 +283,9 @@ class CrossingObjectiveBase(abc.ABC):
         self.pairs = PairEvaluator(engine, states, want_coupling=want_coupling,
                                    project_external=settings.project_external,
                                    tracker=tracker, tracking_options=tracking_options)
+        opts = tracking_options
+        self.min_overlap = 0.5 if opts is None else float(getattr(opts, "min_overlap", 0.5))
+        self.tracking_enabled = True if opts is None else bool(getattr(opts, "enabled", True))
         self._warnings: list[str] = list(pair_warnings(engine, self.pairs.targets))
         self._pending: dict[int, tuple[Any, PairEvaluation, Any]] = {}
         self.last_pair: PairEvaluation | None = None
@@ -306,6 +309,14 @@ class CrossingObjectiveBase(abc.ABC):
         pair = self.pairs.evaluate(geometry)
         self.last_pair = pair
         value, payload = self._compose(pair)
+        if self.pair_lost(pair):
+            # the followed pair changed character at this trial geometry: a shorter step
+            from dataclasses import replace
+
+            log.info("the pair %s lost its character at the trial geometry (overlap %.2f): "
+                     "asking for a shorter step", "/".join(map(str, self.targets)),
+                     min(pair.tracking.confidence))
+            value = replace(value, reject_step=True)
         if len(self._pending) > 16:  # rejected trials are never accepted; forget old ones
             self._pending.pop(next(iter(self._pending)))
         self._pending[id(value)] = (value, pair, payload)
@@ -320,6 +331,27 @@ class CrossingObjectiveBase(abc.ABC):
         self.pairs.accept(pair)
         self.accepted_pair = pair
         self._commit(pair, payload)
+
+    def restoration(self, value: Any) -> np.ndarray | None:
+        """Displacement from a trial back to the seam along its gap direction,
+        -dE x-hat/|x1| (linear extrapolation; composed searches only), or None."""
+        entry = self._pending.get(id(value))
+        if entry is None or entry[0] is not value or value.exact_gradient:
+            return None
+        pair = entry[1]
+        n1 = float(np.linalg.norm(pair.x1))
+        if n1 < 1e-12 or pair.gap <= 0.0:
+            return None
+        return pair.shape(-(pair.gap / n1**2) * pair.x1)
+
+    def pair_lost(self, pair: PairEvaluation) -> bool:
+        """True when tracking is on and the trial's pair overlap fell below the threshold
+        (the start geometry, which has no previous point, is never 'lost')."""
+        record = pair.tracking
+        if not self.tracking_enabled or record is None or not getattr(record, "previous_roots", ()):
+            return False
+        confidence = tuple(getattr(record, "confidence", ()) or ())
+        return bool(confidence) and min(confidence) < self.min_overlap
 
     def after_convergence(self, value) -> bool:
         return False
@@ -344,7 +376,8 @@ class CrossingObjectiveBase(abc.ABC):
             gap_eh=pair.gap, convergence_gradient=pair.shape(projected), subspace=model,
             extra_criteria=(gap_criterion(pair.gap, self.settings.gap_tol_eh),),
             evaluation=pair.evaluation, tracking=pair.tracking,
-            info=self._info(pair, merit_gap_weight=mu, **info))
+            info=self._info(pair, merit_gap_weight=mu, **info),
+            model_gradient=pair.shape(projected))
 
     def _info(self, pair: PairEvaluation, **extra: Any) -> dict[str, Any]:
         info = {"search": self.search, "roots": [str(pair.lower), str(pair.upper)],
@@ -408,8 +441,10 @@ def check_merit_weight(objective: "CrossingObjectiveBase", pair: PairEvaluation,
 
     The merit Ebar + mu dE has its minimum on the seam only while mu exceeds the Lagrange
     multiplier |gbar.x1|/|x1|^2; below it, every step toward the seam raises the merit, gets
-    rejected and the search stalls at the smallest trust radius. Raising mu at an accepted
-    point only makes the next acceptance test stricter by (mu_new - mu_old) dE, never looser.
+    rejected and the search stalls at the smallest trust radius. After a raise the optimizer
+    compares the next trial with the current point's merit recomputed at the new weight
+    (:meth:`MeritWeighted.merit`); comparing with the merit stored at the old weight would
+    count a false rise of (mu_new - mu_old) dE against every step.
     """
     n1 = float(np.linalg.norm(pair.x1))
     multiplier = abs(float(pair.gbar @ pair.x1)) / n1**2 if n1 > 0 else 0.0
@@ -437,6 +472,14 @@ class MeritWeighted:
 
     def update_merit(self, pair: PairEvaluation) -> None:
         self.mu = check_merit_weight(self, pair, self.merit_for(pair))
+
+    def merit(self, value: Any) -> float:
+        """Merit Ebar + mu dE of an earlier value at the *current* weight mu (the optimizer
+        compares trials with the current point at one weight; a raised mu would otherwise
+        show up as a false rise (mu_new - mu_old) dE at the next trial)."""
+        gap = value.gap_eh if value.gap_eh is not None else 0.0
+        mu = self.mu if self.mu is not None else float(value.info.get("merit_gap_weight", 0.0))
+        return float(value.value) + mu * float(gap)
 
     def merit_state(self) -> dict[str, Any]:
         return {"merit_gap_weight": self.mu}

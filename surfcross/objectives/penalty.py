@@ -18,7 +18,8 @@ Known limit: at a fixed sigma the minimum of F is *near* the seam, with a residu
 about alpha |gbar.x-hat| / (2 sigma |x1|). The search therefore runs sequentially: after the
 inner convergence tests pass, :meth:`PenaltyObjective.after_convergence` checks the gap; if it
 exceeds the tolerance, sigma grows (by about 2 dE/gap_tol, between 2 and 10 times) and the
-optimizer continues from the same geometry with a fresh Hessian. sigma is capped at
+optimizer continues from the same geometry, with the learned curvature along the gap direction
+scaled by the growth of sigma (:meth:`PenaltyObjective.adjust_hessian`). sigma is capped at
 ``sigma_max``; if the gap is still too large there, the search is reported as failed
 (:attr:`PenaltyObjective.failed`, :attr:`warnings`). The gap test is deliberately *not* an
 inner convergence criterion.
@@ -104,6 +105,7 @@ class PenaltyObjective(CrossingObjectiveBase):
         self.sigma = self.settings.sigma
         self.cycles = 0
         self.failed = False
+        self._growth = 1.0  # sigma_new / sigma_old of the last outer cycle (Hessian rescaling)
 
     @property
     def gap_reached(self) -> bool:
@@ -146,11 +148,33 @@ class PenaltyObjective(CrossingObjectiveBase):
             return False
         # residual gap scales as 1/sigma once dE << alpha: aim below tol with a factor 2 margin
         factor = min(max(2.0 * gap / tol, 2.0), self.settings.max_growth)
+        old = self.sigma
         self.sigma = min(self.sigma * factor, self.settings.sigma_max)
+        self._growth = self.sigma / old
         self.cycles += 1
         log.info("penalty search: gap %.2e Eh > %.1e, sigma -> %.4g (outer cycle %d)",
                  gap, tol, self.sigma, self.cycles)
         return True
+
+    def adjust_hessian(self, H: np.ndarray, to_q: Any) -> np.ndarray:
+        """The Hessian after sigma grew: its curvature along the gap direction scaled with sigma.
+
+        Near the seam the curvature of F along x-hat is about sigma G''(dE) |x1|^2 (mostly the
+        penalty term), so the learned curvature c along the q-space image u of x1 becomes
+        c sigma_new / sigma_old; the rest of H (the mean energy's curvature) is kept. A reset
+        to the model Hessian would forget the stiff direction and reject the next step.
+        """
+        pair = self.accepted_pair
+        factor, self._growth = self._growth, 1.0
+        if pair is None or factor == 1.0:
+            return H
+        v = np.asarray(to_q(pair.shape(pair.x1)), float).ravel()
+        n = float(np.linalg.norm(v))
+        if n == 0.0:
+            return H
+        u = v / n
+        c = float(u @ H @ u)
+        return H + (factor - 1.0) * c * np.outer(u, u)
 
     def state_dict(self) -> dict[str, Any]:
         state = super().state_dict()

@@ -12,6 +12,9 @@ term by a constant factor instead). At convergence dE = 0 and P gbar = 0, i.e. b
 are parallel to x1. Convergence: force criteria on P gbar and gap <= gap_tol; steps are
 accepted on the merit Ebar + mu dE.
 
+``symmetry`` (the pair's point-group record from ``tasks.crossing.pair_symmetry``) tells a
+same-spin pair that no nuclear motion can couple, for which this is the right search.
+
 Limits: the point found is a geometric landmark; how fast a molecule actually changes spin
 there depends on the spin-orbit coupling, which this search does not compute. For a
 same-spin pair this search ignores the second branching direction and can stall near a
@@ -64,12 +67,14 @@ class SpinCrossingObjective(MeritWeighted, CrossingObjectiveBase):
     search = "spin"
 
     def __init__(self, engine: Engine, states: Sequence[str | StateLabel],
-                 settings: SpinSettings | None = None, **kwargs: Any) -> None:
+                 settings: SpinSettings | None = None, *, symmetry: Any = None,
+                 **kwargs: Any) -> None:
         settings = settings or SpinSettings()
         super().__init__(engine, states, settings, want_coupling=False, **kwargs)
         reference_pair = any(t.is_reference for t in self.targets) and \
             getattr(getattr(engine, "spec", None), "method", "casscf") != "casscf"
-        if self.pairs.same_manifold and not reference_pair:
+        blocked = symmetry is not None and symmetry.get("can_mix") is False
+        if self.pairs.same_manifold and not reference_pair and not blocked:
             # (a response method's reference and a response state do not couple: for them
             # the one-dimensional search is the right one, see searches.choose_search)
             self.warn(f"{self.targets[0]} and {self.targets[1]} have the same spin: the spin "

@@ -12,13 +12,22 @@ still measures the curvature around the current point).
 *Composed objectives* (``exact_gradient=False``; the working gradient is not the derivative of
 any scalar): there is no ratio. The step uses the working Hessian
 H_w = P H P + sum_k c_k v_k v_k^T from ``value.subspace`` (P = 1 - V^T V, rebuilt at every
-step, never reused), and the quasi-Newton H is updated with y = P_new (g_new - g_old) and the
-projected step P_new s. A trial is rejected when ``value.merit_value`` rises by more than
-``merit_rise_tolerance``; the radius doubles only after ``grow_after`` consecutive accepted
+step, never reused), and the quasi-Newton H is updated with y = P_new (m_new - m_old), m the
+objective's model gradient (``value.hessian_gradient``: for a crossing pair the mean gradient
+projected with its own point's projector, P_k gbar_k, so the gap term stays out while the turn
+of the projector, which carries the curvature of the seam, stays in), and the projected step
+actually taken, P_new s. A trial is rejected when its merit rises by
+more than ``merit_rise_tolerance`` above the current point's merit, recomputed at the
+objective's current weights (``objective.merit(value)`` when it has that method); the radius doubles only after ``grow_after`` consecutive accepted
 steps at the boundary and shrinks on rejection. This is the documented rule for objectives that
 are not true energies; subspace models are Cartesian, so these runs need Cartesian coordinates.
 
-In both cases ``value.reject_step`` makes the trial count as rejected. A rise (of value or
+A composed trial rejected on its merit gets one second-order correction first when the
+objective offers ``restoration(value)`` (a displacement back to the seam from the trial): the
+corrected point is evaluated and accepted if its merit is lower (see ``_corrected_trial``).
+In both cases ``value.reject_step`` makes the trial count as rejected. After a rejection the
+objective may restate the current point without a new evaluation (``objective.refresh``: the
+projected crossing search learns its branching plane from a trial that turned x-hat). A rise (of value or
 merit) that a shorter step cannot cure, because the radius is already at ``trust_min`` or the
 step was shorter, is accepted with a warning in ``OptimizationResult.warnings`` (noise-level
 rises near convergence). A ``reject_step`` request that cannot be cured that way, or
@@ -26,7 +35,10 @@ rises near convergence). A ``reject_step`` request that cannot be cured that way
 
 Other rules: when every criterion passes, ``objective.after_convergence(value)`` may redefine
 the objective (returns True); the loop then re-evaluates at the same geometry (one more
-evaluation and one more iteration), resets the Hessian to the initial model and goes on. When
+evaluation and one more iteration), lets the objective adapt the Hessian
+(``objective.adjust_hessian``; without it the Hessian is reset to the initial model) and goes
+on. Evaluations an objective makes itself while checking convergence
+(``objective.consume_evaluations()``) are added to the count. When
 the coordinate system asks for a rebuild it is replaced by ``coords.rebuilt(x)`` and the Hessian
 is re-initialized from the model (simple and safe; curvature learned so far is lost).
 
@@ -44,7 +56,7 @@ from __future__ import annotations
 
 import logging
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Callable, Iterable, Iterator, Mapping
 
 import numpy as np
@@ -76,6 +88,8 @@ class _State:
     gq: np.ndarray
     H: np.ndarray
     trust: float
+    gm: np.ndarray | None = None  # q-space gradient whose differences update H
+    merit: float = 0.0  # merit of the current point at the objective's current weights
     iteration: int = 0
     streak: int = 0
     rejections: int = 0
@@ -118,6 +132,9 @@ class Optimizer:
         self.convergence = convergence if convergence is not None else ConvergenceSettings.preset()
         self._observers: list[Observer] = list(observers)
         self.update = make_update(self.settings.hessian_update, self.settings.curvature_policy)
+        bind = getattr(objective, "use_convergence", None)
+        if callable(bind):  # objectives that verify their own convergence need the thresholds
+            bind(self.convergence)
         self.evaluations = 0
         self.warnings: list[str] = []
         self.history: list[StepRecord] = []
@@ -190,7 +207,9 @@ class Optimizer:
         yield last
         while not stop:
             if all_passed(last.criteria):
-                if not self.objective.after_convergence(st.value):
+                redefined = self.objective.after_convergence(st.value)
+                self._count_extra_evaluations()
+                if not redefined:
                     return Status.CONVERGED, f"converged after {st.iteration} iterations"
                 rec, failure = self._redefined(st), None
             elif st.iteration >= self.settings.max_iterations:
@@ -223,11 +242,12 @@ class Optimizer:
         x = np.asarray(geometry.coords_bohr)
         gq = self.coords.gradient(x, value.gradient)
         st = _State(geometry=geometry, value=value, gq=gq, H=self._initial_hessian(geometry),
-                    trust=self.settings.trust_radius)
+                    trust=self.settings.trust_radius, gm=self._model_gradient(x, value))
         if state is not None:
             self._restore(st, state)
         self._state = st
         self.objective.accept(value)
+        st.merit = self._merit(value)
         return st
 
     def _restore(self, st: _State, state: Mapping[str, Any]) -> None:
@@ -266,7 +286,7 @@ class Optimizer:
             return self._failed_displacement(st, dq, "non-finite value or gradient")
         if composed:
             decision = judge_composed_step(
-                merit_change=value.merit_value - st.value.merit_value, step_length=length,
+                merit_change=value.merit_value - st.merit, step_length=length,
                 radius=st.trust, good_streak=st.streak, grow_after=s.grow_after,
                 trust_min=s.trust_min, trust_max=s.trust_max,
                 rise_tolerance=s.merit_rise_tolerance, objective_rejects=value.reject_step)
@@ -281,6 +301,12 @@ class Optimizer:
                 trust_max=s.trust_max, rise_tolerance=s.energy_rise_tolerance,
                 objective_rejects=value.reject_step)
         step_cart = x_new - st.x
+        if composed and not decision.accept and not value.reject_step:
+            corrected = self._corrected_trial(st, value, x_new, length)
+            if corrected is not None:
+                trial_geom, value, dq, decision = corrected
+                x_new = np.asarray(trial_geom.coords_bohr)
+                step_cart = x_new - st.x
         if not decision.accept:
             stuck = decision.trust_radius >= length * (1.0 - 1e-9)
             if stuck and not value.reject_step:
@@ -292,6 +318,7 @@ class Optimizer:
                 self._learn(st, value, trial_geom, dq)
                 rec = self._record(st, trial_geom, value, accepted=False, step=step_cart,
                                    message=f"rejected: {decision.reason}")
+                self._refresh(st)
                 if stuck or st.rejections > s.max_rejections:
                     return rec, (f"{st.rejections} consecutive steps rejected "
                                  f"(last: {decision.reason}); check the objective near this geometry")
@@ -300,28 +327,107 @@ class Optimizer:
         return self._record(st, st.geometry, st.value, accepted=True, step=step_cart,
                             message=decision.reason), None
 
+    def _corrected_trial(self, st: _State, value: ObjectiveValue, x_new: np.ndarray,
+                         length: float):
+        """Second-order correction of a composed trial rejected on its merit.
+
+        On a curved seam a step along the intersection space opens the gap to second order
+        and the merit rejects it although the step was good (the Maratos effect of
+        constrained optimization, textbook). The objective's ``restoration(value)`` gives the
+        Cartesian displacement back to the seam from the trial (for a crossing search
+        -dE x-hat/|x1|); the corrected point is evaluated once and accepted when its merit
+        is below the current one. Only a trial that lowered the energy and opened the gap is
+        corrected. Returns (geometry, value, dq, decision) or None."""
+        restore = getattr(self.objective, "restoration", None)
+        gap_t, gap_0 = value.gap_eh, st.value.gap_eh
+        if gap_t is None or gap_0 is None or not (value.value < st.value.value and gap_t > gap_0):
+            return None  # only a step that lowered the energy but opened the gap
+        r = restore(value) if callable(restore) else None
+        if r is None:
+            return None
+        dq = (x_new - st.x).ravel() + np.asarray(r, float).ravel()
+        dq = self.coords.project_step(st.x, dq)
+        try:
+            dq, x2 = self._displace(st.x, dq)
+        except (BackTransformError, InputError):
+            return None
+        if float(np.linalg.norm(dq)) > 1.5 * max(length, st.trust):
+            return None
+        value2 = self._evaluate(st.geometry.with_coords(x2))
+        if value2 is None or value2.reject_step:
+            return None
+        s = self.settings
+        decision = judge_composed_step(
+            merit_change=value2.merit_value - st.merit, step_length=length, radius=st.trust,
+            good_streak=st.streak, grow_after=s.grow_after, trust_min=s.trust_min,
+            trust_max=s.trust_max, rise_tolerance=s.merit_rise_tolerance)
+        if not decision.accept:
+            return None
+        decision = replace(decision, reason=decision.reason + " (after a correction back to "
+                                                              "the seam)")
+        return st.geometry.with_coords(x2), value2, dq, decision
+
     def _learn(self, st: _State, value: ObjectiveValue, geometry: Geometry,
-               dq: np.ndarray) -> np.ndarray:
+               dq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Update the Hessian with the secant pair of a trial (accepted or rejected: a
-        rejected trial still measures the curvature around the current point)."""
+        rejected trial still measures the curvature around the current point).
+
+        The step is the one actually taken (the q-space difference of the two geometries,
+        which differs from the requested ``dq`` after an internal-coordinate back-transformation
+        or a per-atom cap); the gradient difference is that of the objective's model gradient
+        (for a composed crossing search the projected mean gradient P_k gbar_k of each point,
+        the difference projected once more with the new point's subspace: the gap term does
+        not enter the curvature of the intersection space). Returns the new working and model
+        q-gradients."""
         x_new = np.asarray(geometry.coords_bohr)
         gq_new = self.coords.gradient(x_new, value.gradient)
-        y, s = gq_new - st.gq, dq
+        gm_new = self._model_gradient(x_new, value)
+        s = self._actual_step(st.x, x_new, dq)
+        y = gm_new - (st.gm if st.gm is not None else st.gq)
         if value.subspace is not None:
             P = value.subspace.projector()
             y, s = P @ y, P @ s
         H = self.update.update(st.H, s, y).hessian
         st.H = clamp_eigenvalues(H, self.settings.min_curvature, self.settings.max_curvature)
-        return gq_new
+        return gq_new, gm_new
+
+    def _refresh(self, st: _State) -> None:
+        """Let the objective restate the current point after a rejected trial taught it
+        something (``objective.refresh(value)`` returns a new value or None; no evaluation)."""
+        refresh = getattr(self.objective, "refresh", None)
+        new = refresh(st.value) if callable(refresh) else None
+        if new is None:
+            return
+        st.value, st.gq = new, self.coords.gradient(st.x, new.gradient)
+        st.gm = self._model_gradient(st.x, new)
+        st.merit = self._merit(new)
+
+    def _model_gradient(self, x: np.ndarray, value: ObjectiveValue) -> np.ndarray:
+        return self.coords.gradient(x, value.hessian_gradient)
+
+    def _actual_step(self, x_old: np.ndarray, x_new: np.ndarray, dq: np.ndarray) -> np.ndarray:
+        """q-space step between two geometries (dihedrals wrapped where the system knows how)."""
+        q_new, q_old = self.coords.values(x_new), self.coords.values(x_old)
+        difference = getattr(self.coords, "difference", None)
+        step = difference(q_new, q_old) if callable(difference) else q_new - q_old
+        step = np.asarray(step, float)
+        return step if step.shape == np.shape(dq) else np.asarray(dq, float)
+
+    def _merit(self, value: ObjectiveValue) -> float:
+        """Merit of ``value`` at the objective's current weights (they may have changed since
+        it was computed: a composed search raises its gap weight at accepted points)."""
+        remerit = getattr(self.objective, "merit", None)
+        return float(remerit(value)) if callable(remerit) else float(value.merit_value)
 
     def _accept(self, st, geometry, value, dq, step_cart, trust, streak) -> None:
         x_new = np.asarray(geometry.coords_bohr)
-        gq_new = self._learn(st, value, geometry, dq)
+        gq_new, gm_new = self._learn(st, value, geometry, dq)
         st.prev_value, st.last_step = st.value.value, step_cart
-        st.geometry, st.value, st.gq = geometry, value, gq_new
+        st.geometry, st.value, st.gq, st.gm = geometry, value, gq_new, gm_new
         st.trust, st.streak, st.rejections = trust, streak, 0
         st.iteration += 1
         self.objective.accept(value)
+        st.merit = self._merit(value)
         if self.coords.needs_rebuild(x_new):
             rebuilt = getattr(self.coords, "rebuilt", None)
             if callable(rebuilt):
@@ -329,20 +435,35 @@ class Optimizer:
                             st.iteration)
                 self.coords = rebuilt(x_new)
                 st.gq = self.coords.gradient(x_new, value.gradient)
+                st.gm = self._model_gradient(x_new, value)
                 st.H = self._initial_hessian(geometry)
             else:
                 self._warn("the coordinate system asked for a rebuild but cannot rebuild itself")
 
     def _redefined(self, st: _State) -> StepRecord:
-        """after_convergence returned True: re-evaluate here, reset the Hessian."""
+        """after_convergence returned True: re-evaluate here and carry the Hessian over.
+
+        An objective with ``adjust_hessian(H, to_q)`` (``to_q`` maps a Cartesian covector to
+        q-space) adapts the learned Hessian to its new definition (the penalty search rescales
+        the curvature along the gap direction to the new weight); one without it gets the
+        initial model Hessian, as it may have changed in any way."""
+        adjust = getattr(self.objective, "adjust_hessian", None)
+        if callable(adjust):
+            x = st.x
+            st.H = clamp_eigenvalues(np.asarray(adjust(st.H, lambda v: self.coords.gradient(x, v)),
+                                                float),
+                                     self.settings.min_curvature, self.settings.max_curvature)
+        else:
+            st.H = self._initial_hessian(st.geometry)
         value = self._evaluate(st.geometry)
         if value is None:
             raise EngineError("the redefined objective gave a non-finite value or gradient")
         st.value, st.gq = value, self.coords.gradient(st.x, value.gradient)
-        st.H = self._initial_hessian(st.geometry)
+        st.gm = self._model_gradient(st.x, value)
         st.prev_value, st.last_step, st.streak = None, None, 0
         st.iteration += 1
         self.objective.accept(value)
+        st.merit = self._merit(value)
         return self._record(st, st.geometry, value, accepted=True,
                             message="objective redefined after convergence; continuing")
 
@@ -384,6 +505,12 @@ class Optimizer:
         if not (np.isfinite(value.value) and np.all(np.isfinite(g))):
             return None
         return value
+
+    def _count_extra_evaluations(self) -> None:
+        """Evaluations an objective made on its own (e.g. a convergence check) count too."""
+        consume = getattr(self.objective, "consume_evaluations", None)
+        if callable(consume):
+            self.evaluations += int(consume())
 
     def _initial_hessian(self, geometry: Geometry) -> np.ndarray:
         x = np.asarray(geometry.coords_bohr)

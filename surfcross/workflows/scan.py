@@ -8,7 +8,9 @@
 * **Seam scan** (``along_seam`` = two states): at each value the minimum-energy crossing
   point of the pair with the coordinate held. This uses the *penalty* search, the only
   crossing search that accepts held bonds, angles and dihedrals; its points have a small
-  residual gap (reported).
+  residual gap (reported). A point that does not converge is never handed on: the next
+  point starts from the last converged point (its geometry and states), and the engine's
+  warm-start guess is dropped.
 * **Rigid scan** (``relax=False``): only the coordinate changes (a displacement in redundant
   internals), all states are computed and connected by overlap, nothing is minimized.
 
@@ -127,6 +129,7 @@ def _minimized(mode: str, geometry: Geometry, labels: list[StateLabel], spec: Me
                atoms: Sequence[int], values: Sequence[float], options: RunOptions,
                run_dir: Any, progress: bool, engine: Any, companions: Sequence[Sequence[int]]):
     rows, results, current, previous = [], [], geometry, None
+    start_labels, source = list(labels), "the input geometry"
     for i, value in enumerate(values):
         guess = _guess(current, atoms, value, options)
         labels, _ = _handed_on(engine, previous, labels, guess)
@@ -136,9 +139,21 @@ def _minimized(mode: str, geometry: Geometry, labels: list[StateLabel], spec: Me
         log.info("scan point %d of %d: %s = %g", i + 1, len(values), _kind(atoms), value)
         res = _point(mode, guess, labels, spec, held, _child(run_dir, i), progress, engine)
         rows.append(_row(mode, value, atoms, res, labels))
+        rows[-1]["started_from"] = source
         results.append(res)
-        labels = [parse_state(r) for r in rows[-1]["roots"]]
-        current, previous = res.geometry, res.evaluation
+        if res.converged:
+            labels = [parse_state(r) for r in rows[-1]["roots"]]
+            current, previous, source = res.geometry, res.evaluation, f"point {i + 1}"
+        else:
+            # never hand on a failed point: its geometry and states can belong to another
+            # pair of roots or a broken SCF; the next point starts from the last good one
+            log.warning("scan point %d did not converge (%s); the next point starts from %s",
+                        i + 1, res.message, source)
+            if previous is None:
+                labels = list(start_labels)
+            forget = getattr(engine, "forget_guess", None)
+            if callable(forget):
+                forget()
     return rows, results
 
 
