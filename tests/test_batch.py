@@ -131,7 +131,11 @@ def test_smiles_lists(tmp_path):
 
 def test_without_dask_the_same_command_runs_serially(monkeypatch):
     from surfcross.batch import scheduler
+    from surfcross.batch.chain import CHAIN_STOP
+    from surfcross.tasks.run import STOP_REQUEST
 
+    STOP_REQUEST.clear()  # an interrupt test earlier in this process may have left it set
+    CHAIN_STOP.clear()
     monkeypatch.setattr(scheduler, "have_dask", lambda: False)
     with scheduler.Runner(ClusterSettings()) as runner:
         assert runner.mode == "serial" and runner.client is None

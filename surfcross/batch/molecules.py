@@ -26,7 +26,7 @@ from ..errors import InputError
 from ..io.results import write_json_atomic
 from ..tasks.run import STOP_REQUEST
 from . import records
-from .chain import ChainReport, run_chain
+from .chain import CHAIN_STOP, ChainReport, run_chain
 from .inputs import Chain, JobTemplate, collect_molecules, make_chains, read_job_template
 from .scheduler import ClusterSettings, Progress, Work, run_all
 from .summary import SUMMARY_CSV, SUMMARY_JSON, molecule_rows, overview_plot, write_summary
@@ -91,6 +91,8 @@ def run_chains(chains: Sequence[Chain], out: str | Path, *,
     failed with that reason.
     """
     out = Path(out).resolve()  # workers on other machines do not share our working folder
+    STOP_REQUEST.clear()  # a stop asked of an earlier run in this process is not ours
+    CHAIN_STOP.clear()
     runnable = [c for c in chains if c.job is not None]
     works = [Work(name=c.name, function=run_chain,
                   kwargs={"name": c.name, "job": c.job, "folder": str(out / c.name),
