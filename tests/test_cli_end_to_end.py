@@ -94,7 +94,7 @@ def test_relax_s1_ends_where_pyscf_gradient_vanishes(water_s1):
     assert data["converged"] and data["task"] == "relax" and data["states"] == ["S1"]
     e0, excited, grad = pyscf_cis(water_s1 / "final.xyz", gradient_of=1)
     # reference library: PySCF's TDA energy and analytic gradient at final.xyz
-    assert data["target_energies_eh"]["S1"] == pytest.approx(excited[0], abs=1e-6)
+    assert data["energies_eh"]["S1"] == pytest.approx(excited[0], abs=1e-6)
     assert np.abs(grad).max() < 1e-3
     for name in ("trajectory.xyz", "checkpoint.h5", "report.md", "final.xyz"):
         assert (water_s1 / name).is_file()
@@ -129,8 +129,8 @@ def test_step_limit_then_resume_equals_uninterrupted_run(work, water_s1):
     resumed, full = result(cut), result(water_s1)
     assert resumed["converged"]
     # the uninterrupted run is the reference (our own contract: within 1e-6 Eh)
-    assert resumed["target_energies_eh"]["S1"] == pytest.approx(
-        full["target_energies_eh"]["S1"], abs=1e-6)
+    assert resumed["energies_eh"]["S1"] == pytest.approx(
+        full["energies_eh"]["S1"], abs=1e-6)
     assert resumed["iterations"] == full["iterations"]
     # a converged run is not continued
     done = run("-q", "resume", "s1_cut", cwd=work)
@@ -193,8 +193,8 @@ def test_interrupt_with_a_signal_then_resume(work, water_s1, signum, code):
     resumed = run("-q", "resume", name, cwd=work)
     assert resumed.returncode == 0, resumed.stderr
     # the uninterrupted run is the reference (our own contract: within 1e-6 Eh)
-    assert result(work / name)["target_energies_eh"]["S1"] == pytest.approx(
-        result(water_s1)["target_energies_eh"]["S1"], abs=1e-6)
+    assert result(work / name)["energies_eh"]["S1"] == pytest.approx(
+        result(water_s1)["energies_eh"]["S1"], abs=1e-6)
 
 
 def test_roots_below_the_state_asked_are_raised(work):
@@ -264,7 +264,7 @@ def test_demo(work):
     s1 = result(demo / "s1_minimum")
     _, excited, grad = pyscf_cis(demo / "s1_minimum" / "final.xyz", gradient_of=1)
     # reference library: PySCF TDA energy and gradient of S1 at the demo's S1 minimum
-    assert s1["target_energies_eh"]["S1"] == pytest.approx(excited[0], abs=1e-6)
+    assert s1["energies_eh"]["S1"] == pytest.approx(excited[0], abs=1e-6)
     assert np.abs(grad).max() < 1e-3
     # S1 of formaldehyde is pyramidal with a C-O bond near 1.3 angstrom (experiment about
     # 1.32 angstrom and ~34 degrees out of plane; recalled from memory, loose bounds)
@@ -278,4 +278,4 @@ def test_demo(work):
     # reference library: at the crossing some singlet and some triplet root of PySCF coincide
     gap = np.abs(singlets[:, None] - triplets[None, :]).min()
     assert gap < 1e-5 and cross["converged"]
-    assert min(abs(singlets - cross["target_energies_eh"]["S1"])) < 1e-6
+    assert min(abs(singlets - cross["energies_eh"]["S1"])) < 1e-6

@@ -112,7 +112,7 @@ def test_carbonyl_screen(tmp_path):
     _, td = tda(folder / "s1_minimum" / "final.xyz", 3)
     grad = td.nuc_grad_method().kernel(state=1)
     # reference library: PySCF's CIS S1 energy and analytic gradient at the reported minimum
-    assert s1["target_energies_eh"]["S1"] == pytest.approx(td.e_tot[0], abs=1e-6)
+    assert s1["energies_eh"]["S1"] == pytest.approx(td.e_tot[0], abs=1e-6)
     assert np.abs(grad).max() < 1e-3
     assert singlet_triplet_gap(folder / "s1_t1_crossing" / "final.xyz") < 1e-5
 
@@ -124,7 +124,7 @@ def test_tracking_on_off(tmp_path):
     # exit 0 means: the overlap-followed run converged and the root-number run did not
     assert proc.returncode == 0, proc.stdout + proc.stderr
     folder = tmp_path / "tracking" / "by_overlap"
-    energy = result(folder)["target_energies_eh"]["S2"]
+    energy = result(folder)["energies_eh"]["S2"]
     _, td = tda(folder / "final.xyz", 4)
     root = int(np.argmin(np.abs(td.e_tot - energy)))
     # reference library: the followed state is a PySCF CIS root there, with zero gradient

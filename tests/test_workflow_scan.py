@@ -90,7 +90,7 @@ def test_rigid_scan_matches_engine_at_hand_built_geometries():
             xyz[1] = xyz[0] + bond / np.linalg.norm(bond) * value * ANGSTROM_IN_BOHR
             energies = engine.states(water.with_coords(xyz)).energies()
             for label, e in energies.items():
-                assert point["energies_eh"][label] == pytest.approx(e, abs=1e-7)
+                assert point["adiabatic_energies_eh"][label] == pytest.approx(e, abs=1e-7)
     assert len(profile["connected_ev"]) == len(profile["adiabatic_ev"])
 
 

@@ -38,7 +38,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
 def run(args: argparse.Namespace) -> int:
     labels = parse_states(args.states, count=2)
     geometry = geometry_from_args(args)
-    spec = prepare_method(method_from_args(args), labels)
+    spec = prepare_method(method_from_args(args), labels, geometry,
+                          strict_roots=args.roots is not None)
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "cross")
     result = find_crossing(geometry, labels, spec, search=args.search, options=options,

@@ -9,6 +9,7 @@ import sys
 from ..analysis.vertical import VerticalRow, limits_note, vertical_rows, vertical_summary
 from ..engine import make_engine
 from ..errors import InputError
+from ..tasks.common import prepare_method
 from .options import add_geometry_argument, add_method_options, geometry_from_args, method_from_args
 
 __all__ = ["add_parser", "run", "format_table"]
@@ -58,6 +59,8 @@ def run(args: argparse.Namespace) -> int:
     spec = method_from_args(args, roots=3, triplet_roots=args.triplet_count)
     if spec.method == "casscf" and args.triplet_count:
         raise InputError("--triplet-count applies to the linear-response methods only")
+    spec = prepare_method(spec, [], geometry, strict_roots=args.roots is not None
+                          or args.triplet_count > 0)
     kwargs = {"log_path": args.pyscf_log} if args.pyscf_log else {}
     engine = make_engine(spec, **kwargs)
     try:

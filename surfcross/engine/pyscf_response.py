@@ -45,8 +45,8 @@ from ..states import StateLabel, parse_states
 from .base import EngineBase, Evaluation, MethodSpec, StateInfo
 from .pyscf_records import (manifold_wavefunction, reference_spin_square, response_states)
 from .pyscf_scf import build_molecule, check_functional, run_reference, stabilize, warm_density
-from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, make_response, project_guess,
-                            solve_response)
+from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, excitation_dimension, make_response,
+                            project_guess, solve_response)
 from .wavefunction import ResponseWavefunction
 
 __all__ = ["PySCFResponseEngine"]
@@ -192,7 +192,8 @@ class PySCFResponseEngine(EngineBase):
         # took more iterations from projected (X, Y) than from its own orbital-energy guess
         # in our checks (water, formaldehyde; STO-3G and 6-31G), so full response starts cold.
         prev = self._previous.get(slot) if self.warm_start and not full else None
-        x0 = project_guess(prev, mf.mol, mf, nroots + EXTRA_ROOTS) if prev else None
+        wanted = min(nroots + EXTRA_ROOTS, excitation_dimension(mf))
+        x0 = project_guess(prev, mf.mol, mf, wanted) if prev else None
         what = {"S": "singlet response", "T": "triplet response"}.get(manifold, "response")
         roots = solve_response(td, nroots, full=full, unrestricted=unrestricted, x0=x0, what=what)
         warnings += roots.notes

@@ -19,7 +19,8 @@ from ..errors import InputError, SCFNotConvergedError
 from ..geometry import Geometry
 from .base import MethodSpec
 
-__all__ = ["ScfResult", "build_molecule", "check_functional", "run_reference", "warm_density"]
+__all__ = ["ScfResult", "Capacity", "build_molecule", "capacity", "check_functional",
+           "run_reference", "warm_density"]
 
 logger = logging.getLogger(__name__)
 
@@ -67,6 +68,63 @@ def build_molecule(geometry: Geometry, spec: MethodSpec, spin: int, stdout: IO |
     if stdout is not None:
         mol.stdout = stdout
     return mol
+
+
+@dataclass(frozen=True)
+class Capacity:
+    """How many states a method can give for one molecule in one basis (no SCF needed).
+
+    ``occupied``/``virtual`` are (alpha, beta) orbital counts of the reference determinant;
+    ``excitations`` the number of single excitations of the response manifold (occupied x
+    virtual, summed over spins for an unrestricted reference); ``active_states`` the number
+    of singlet configuration state functions of a CASSCF active space (None without one).
+    """
+
+    orbitals: int
+    occupied: tuple[int, int]
+    virtual: tuple[int, int]
+    excitations: int
+    unrestricted: bool
+    active_states: int | None = None
+
+    def describe(self) -> str:
+        if self.unrestricted:
+            return (f"{self.excitations} excitations ({self.occupied[0]} x {self.virtual[0]} "
+                    f"alpha + {self.occupied[1]} x {self.virtual[1]} beta occupied x virtual "
+                    "orbitals)")
+        return (f"{self.excitations} excitations per spin manifold ({self.occupied[0]} occupied "
+                f"x {self.virtual[0]} virtual orbitals)")
+
+
+def singlet_csf_count(electrons: int, orbitals: int) -> int:
+    """Number of singlet configuration state functions of ``electrons`` in ``orbitals``.
+
+    Weyl's dimension formula (as used for the unitary-group approach to CI, common practice):
+    N = (2S + 1)/(n + 1) * C(n + 1, N/2 - S) * C(n + 1, N/2 + S + 1) with S = 0.
+    """
+    from math import comb
+
+    if electrons % 2 or electrons > 2 * orbitals:
+        return 0
+    half = electrons // 2
+    return comb(orbitals + 1, half) * comb(orbitals + 1, half + 1) // (orbitals + 1)
+
+
+def capacity(geometry: Geometry, spec: MethodSpec) -> Capacity:
+    """Orbital and excitation counts of ``geometry`` in ``spec.basis``, from the PySCF molecule
+    alone (builds the basis; no integrals beyond that, no SCF). Raises InputError for a
+    basis PySCF does not know or an impossible charge/spin."""
+    mol = build_molecule(geometry, spec, geometry.spin, None, 0)
+    nao = int(mol.nao_nr())
+    na, nb = (int(n) for n in mol.nelec)
+    unrestricted = geometry.spin > 0 or spec.unrestricted
+    occ, vir = (na, nb), (nao - na, nao - nb)
+    excitations = occ[0] * vir[0] + (occ[1] * vir[1] if unrestricted else 0)
+    active = None
+    if spec.active_space is not None:
+        active = singlet_csf_count(*spec.active_space)
+    return Capacity(orbitals=nao, occupied=occ, virtual=vir, excitations=excitations,
+                    unrestricted=unrestricted, active_states=active)
 
 
 def check_functional(xc: str | None) -> None:

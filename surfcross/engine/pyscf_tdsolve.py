@@ -19,7 +19,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..errors import ResponseNotConvergedError
+from ..errors import InputError, ResponseNotConvergedError
 
 __all__ = ["ResponseRoots", "make_response", "solve_response", "cis_like_amplitudes",
            "project_guess", "spread_guess", "EXTRA_ROOTS"]
@@ -114,9 +114,20 @@ def _converged_flags(td: Any, n: int) -> np.ndarray:
     return flags
 
 
+def excitation_dimension(mf: Any) -> int:
+    """Number of single excitations (occupied x virtual, per spin for unrestricted) of ``mf``."""
+    occ = np.asarray(mf.mo_occ)
+    if occ.ndim == 2:
+        return int(sum((o > 0).sum() * (o == 0).sum() for o in occ))
+    return int((occ > 0).sum() * (occ == 0).sum())
+
+
 def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
                    x0: np.ndarray | None, what: str) -> ResponseRoots:
     """Solve for ``needed`` roots (+ EXTRA_ROOTS) and check every root's convergence.
+
+    No more roots are asked than there are excitations (``excitation_dimension``); asking
+    for more than that is an InputError, raised before any SCF by the tasks.
 
     Attempt 1: ``needed + EXTRA_ROOTS`` roots from ``x0`` (or PySCF's orbital-energy guess),
     with the symmetry-breaking admixture of :func:`spread_guess`.
@@ -126,9 +137,13 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
     When only the extra roots stall, attempt 2 is made once and its outcome accepted.
     Raises :class:`ResponseNotConvergedError` when any asked root is still unconverged.
     """
-    nstates = needed + EXTRA_ROOTS
+    dim = excitation_dimension(td._scf)
+    if needed > dim:
+        raise InputError(f"{what}: {needed} roots asked, but there are only {dim} excitations "
+                         "in this basis; ask for fewer roots or use a larger basis")
+    nstates = min(needed + EXTRA_ROOTS, dim)
     attempts = [(nstates, FIRST_MAX_CYCLE, x0), (nstates, RETRY_MAX_CYCLE, "restart"),
-                (nstates + 2, RETRY_MAX_CYCLE, None)]
+                (min(nstates + 2, dim), RETRY_MAX_CYCLE, None)]
     iterations = 0
     for k, (n, cycles, guess) in enumerate(attempts):
         if isinstance(guess, str):
@@ -162,7 +177,7 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
         extra += 1
     result = ResponseRoots(td=td, full=full, unrestricted=unrestricted,
                            iterations=iterations, nreport=needed + extra)
-    if extra < EXTRA_ROOTS:
+    if extra < min(EXTRA_ROOTS, dim - needed):
         result.notes.append(f"{what}: only {extra} of {EXTRA_ROOTS} extra roots above the asked "
                             "ones converged; state tracking has less room above the top root")
     return result

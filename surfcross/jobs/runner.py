@@ -71,7 +71,9 @@ class TaskOutcome:
         if self.result is not None:
             data = self.result.data
             out.update({"iterations": self.result.iterations, "states": list(self.result.states)})
-            for key in ("target_energies_eh", "gap_ev", "search", "warnings"):
+            keys = ("gap_ev", "search", "warnings") if self.result.task == "states" else \
+                ("energies_eh", "followed_roots", "gap_ev", "search", "warnings")
+            for key in keys:
                 if data.get(key) is not None:
                     out[key] = data[key]
             if self.result.task == "states":
@@ -154,7 +156,7 @@ def method_for(job: Job, labels: list[str]) -> MethodSpec:
     Roots given in the file are a lower bound: a task that asks for a higher state gets the
     roots it needs, and the log says so.
     """
-    spec = prepare_method(job.method, labels)
+    spec = prepare_method(job.method, labels, job.molecule)
     if "roots" in job.method_keys and spec.roots > job.method.roots:
         log.info("roots raised from %d to %d to cover %s", job.method.roots, spec.roots,
                  ", ".join(labels))
@@ -280,9 +282,11 @@ def validate_job(job: Job) -> None:
         try:
             labels = parse_states(task_labels(task.kind, task.options))
             check_labels(job.molecule, labels)
-            prepare_method(job.method, labels)
+            prepare_method(job.method, labels, job.molecule,
+                           strict_roots="roots" in job.method_keys)
             if task.kind in ("relax", "cross", "emission", "scan"):
-                run_options_from_task(task.options)
+                for c in run_options_from_task(task.options).constraints:
+                    c.check(job.molecule.natom)
         except InputError as exc:
             raise InputError(f"{where}: {exc}") from None
         if not kind_available(task.kind):

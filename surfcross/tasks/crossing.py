@@ -56,7 +56,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     check_labels(geometry, labels)
     one_dimensional = _one_dimensional(labels, method)
     name = choose_search(labels, search, method)
-    spec = prepare_method(method, labels)
+    spec = prepare_method(method, labels, geometry)  # impossible requests: before any SCF
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
     settings = default_settings(name, _gap_preset(options))
     if gap_tolerance_eh is not None:

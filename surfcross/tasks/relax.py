@@ -12,7 +12,7 @@ from ..geometry import Geometry
 from ..objectives.single import SingleStateObjective
 from ..states import StateLabel, parse_state
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
-from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
+from .common import RunOptions, TaskResult, method_warnings, prepare_method
 from ..units import BOHR_IN_ANGSTROM
 from .run import finish_task, run_optimization, task_spec
 
@@ -52,8 +52,7 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         ``converged`` False with status 'step limit reached' is a normal outcome, not an error.
     """
     label = parse_state(state)
-    check_labels(geometry, [label])
-    spec = prepare_method(method, [label])
+    spec = prepare_method(method, [label], geometry)  # impossible requests: before any SCF
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
     warnings = method_warnings(spec, [label])
     data: dict[str, Any] = {}
@@ -83,7 +82,6 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         warnings.append(note + "; displaced along the mode and minimized again")
         mode = curvature.modes[int(curvature.frequencies_cm.argmin())]
         start = displace_along(result.geometry, mode, IMAGINARY_DISPLACEMENT)
-    warnings += [f"tracking: {r}" for r in reorderings]
     if result.value.evaluation is not None:
         warnings += list(result.value.evaluation.warnings)
     return finish_task("relax", result, [label], spec, run_dir, warnings=warnings, data=data,
