@@ -11,6 +11,8 @@ from surfcross.engine.casscf_checks import property_warnings
 from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 
+pytestmark = pytest.mark.pyscf
+
 pytest.importorskip("pyscf")
 
 _SYMBOLS = ["C", "C", "H", "H", "H", "H"]

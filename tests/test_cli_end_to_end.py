@@ -20,6 +20,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+pytestmark = pytest.mark.pyscf
+
 # water near its experimental structure, angstrom (our own test input)
 WATER = "3\nwater\nO 0.0 0.0 0.1173\nH 0.0 0.7572 -0.4692\nH 0.0 -0.7572 -0.4692\n"
 # methylene with an H-C-H angle of 115 degrees, r(C-H) 1.09 angstrom (our own test input)
@@ -188,8 +190,15 @@ def test_interrupt_with_a_signal_then_resume(work, water_s1, signum, code):
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == code and "Traceback" not in err
     if signum == signal.SIGINT:
+        # Ctrl-C: the record is written at the last finished step, status 'interrupted',
+        # with the command that continues it (our own contract)
         assert "surfcross resume" in err
-    assert not (work / name / "result.json").exists()
+        stopped = result(work / name)
+        assert stopped["status"] == "interrupted" and not stopped["converged"]
+        assert stopped["resume_command"] == f"surfcross resume {name}"
+        assert "surfcross resume" in (work / name / "report.md").read_text()
+    else:  # a queue's SIGTERM ends the process at once: only the checkpoint is there
+        assert not (work / name / "result.json").exists()
     resumed = run("-q", "resume", name, cwd=work)
     assert resumed.returncode == 0, resumed.stderr
     # the uninterrupted run is the reference (our own contract: within 1e-6 Eh)

@@ -15,7 +15,7 @@ import sys
 import pytest
 from scipy import constants
 
-pytestmark = pytest.mark.slow
+pytestmark = pytest.mark.pyscf
 
 # water near its experimental structure (our own test input), angstrom
 WATER_XYZ = """3

@@ -28,6 +28,8 @@ from surfcross.states import parse_states
 from surfcross.tasks.common import method_warnings
 from surfcross.units import BOHR_IN_ANGSTROM
 
+pytestmark = pytest.mark.pyscf
+
 # water near its experimental structure, angstrom (our own test input)
 WATER = "3\nwater\nO 0.0 0.0 0.117\nH 0.0 0.757 -0.470\nH 0.0 -0.757 -0.470\n"
 EXE = shutil.which("surfcross")

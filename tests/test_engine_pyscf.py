@@ -18,7 +18,7 @@ from surfcross.errors import InputError, ResponseNotConvergedError, SCFNotConver
 from surfcross.geometry import Geometry
 from surfcross.units import HARTREE_IN_EV
 
-pytestmark = pytest.mark.slow
+pytestmark = pytest.mark.pyscf
 
 # our own test geometries (angstrom)
 WATER = Geometry.from_angstrom(["O", "H", "H"], [[0.0, 0.0, 0.1173], [0.0, 0.7572, -0.4692],

@@ -17,6 +17,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+pytestmark = pytest.mark.pyscf
+
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
 

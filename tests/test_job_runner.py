@@ -18,6 +18,8 @@ from surfcross.jobs import parse_job
 from surfcross.jobs import runner
 from surfcross.jobs.runner import method_for, run_job, run_options_from_task
 
+pytestmark = pytest.mark.pyscf
+
 MOLECULE = '''[molecule]
 xyz = """
 O 0.0  0.0     0.1173

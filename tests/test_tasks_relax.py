@@ -16,6 +16,8 @@ from surfcross.data import example_geometry
 from surfcross.io.run import RunDirectory
 from surfcross.units import BOHR_IN_ANGSTROM
 
+pytestmark = pytest.mark.pyscf
+
 HF = MethodSpec(method="cis", basis="sto-3g", roots=2)
 
 

@@ -21,6 +21,8 @@ import pytest
 from surfcross.data import example_geometry
 from surfcross.units import HARTREE_IN_EV
 
+pytestmark = pytest.mark.pyscf
+
 JOB = """
 title = "formaldehyde photophysics"
 [molecule]

@@ -35,6 +35,8 @@ from surfcross.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 from surfcross.workflows import scan, scan_values
 from surfcross.workflows.scan import coordinate_value, drive_coordinate
 
+pytestmark = pytest.mark.pyscf
+
 CIS = MethodSpec(method="cis", basis="sto-3g", roots=3)
 
 

@@ -20,7 +20,13 @@ from ..geometry import Geometry
 from .base import MethodSpec
 
 __all__ = ["ScfResult", "Capacity", "build_molecule", "capacity", "check_functional",
-           "run_reference", "warm_density"]
+           "run_reference", "warm_density", "internal_stability", "stabilize",
+           "STABILITY_TAG", "STABILITY_SPACING_BOHR", "STABILITY_MODES"]
+
+#: analyse the reference again once an atom has moved this far (bohr) since the last analysis
+STABILITY_SPACING_BOHR = 0.2
+#: what the engine does with a warm-started reference found unstable mid-run
+STABILITY_MODES = ("report", "follow")
 
 logger = logging.getLogger(__name__)
 
@@ -210,8 +216,7 @@ def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
         total += n
         if ok:
             return ScfResult(polished, total, strategy)
-    kind = ("UHF" if unrestricted else "RHF") if spec.xc is None else \
-        ("UKS" if unrestricted else "RKS") + f"/{spec.xc}"
+    kind = reference_kind(spec, unrestricted)
     raise SCFNotConvergedError(
         f"the {kind} reference did not converge ({total} cycles: DIIS, level shift + damping, "
         "second-order solver). Check charge and spin, start from a more reasonable geometry, "
@@ -219,29 +224,74 @@ def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
         + "or try another basis")
 
 
-def stabilize(mf: Any, spec: MethodSpec, unrestricted: bool, max_tries: int = 3) -> tuple[Any, int]:
+def internal_stability(mf: Any) -> tuple[bool, Any]:
+    """PySCF's internal stability analysis of a converged RHF/UHF/RKS/UKS reference.
+
+    Internal: orbital rotations that keep the kind of reference (restricted stays
+    restricted). Returns (stable, orbitals rotated along the unstable mode, or the
+    unchanged orbitals when stable).
+    """
+    verbose = mf.verbose
+    try:
+        mo_i, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
+    finally:
+        mf.verbose = verbose
+    return bool(stable), mo_i
+
+
+def stabilize(mf: Any, spec: MethodSpec, unrestricted: bool,
+              max_tries: int = 3) -> tuple[Any, int, bool]:
     """Follow internal instabilities of a converged reference down to a stable solution.
 
-    A cold start of an unrestricted (e.g. high-spin triplet) SCF can land on an excited SCF
-    solution; warm starts would then carry it along the whole run. PySCF's internal
-    stability analysis gives rotated orbitals when a lower solution exists; we reconverge from
-    them (at most ``max_tries`` times). Returns the stable mean-field object and the extra
-    SCF cycles spent.
+    A cold start (e.g. of a high-spin triplet) can land on an excited SCF solution, and a
+    warm start carries a solution on past the geometry where it stops being the lowest (H2
+    stretched with an unrestricted reference stays on the restricted-like solution). From the
+    rotated orbitals of :func:`internal_stability` the SCF is reconverged (at most
+    ``max_tries`` times). Returns the mean-field object (the lowest one found), the extra
+    SCF cycles spent and whether it passed the analysis.
     """
     cycles = 0
     for _ in range(max_tries):
-        mo_new = mf.stability(external=False)[0] if unrestricted else mf.stability()[0]
-        if np.allclose(np.asarray(mo_new), np.asarray(mf.mo_coeff), atol=1e-6):
-            return mf, cycles
+        stable, mo_new = internal_stability(mf)
+        if stable:
+            return mf, cycles, True
         trial = _new_scf(mf.mol, spec, unrestricted)
         ok, n = _counted_kernel(trial, mf.make_rdm1(mo_new, mf.mo_occ))
         cycles += n
         if not ok or trial.e_tot > mf.e_tot - 1e-9:
-            return mf, cycles
+            return mf, cycles, False
         logger.info("SCF reference was unstable; moved to a lower solution (%.8f -> %.8f Eh)",
                     mf.e_tot, trial.e_tot)
         mf = trial
-    return mf, cycles
+    return mf, cycles, internal_stability(mf)[0]
+
+
+def reference_kind(spec: MethodSpec, unrestricted: bool) -> str:
+    """'RHF', 'UKS/B3LYP', ... for messages."""
+    if spec.xc is None:
+        return "UHF" if unrestricted else "RHF"
+    return ("UKS" if unrestricted else "RKS") + f"/{spec.xc}"
+
+
+def instability_note(spec: MethodSpec, unrestricted: bool, label: str) -> str:
+    """The warning for a reference found unstable mid-run (with the remedies)."""
+    other = "" if unrestricted else "an unrestricted reference (--unrestricted), "
+    return (f"{label}: the {reference_kind(spec, unrestricted)} reference became unstable "
+            f"{STABILITY_TAG}: a lower SCF solution exists, so the states there were computed "
+            "on an excited SCF solution that the warm start carried along. Rerun with "
+            "--follow-instability (moves to the lower solution and continues there), "
+            f"--cold-start, {other}or SA-CASSCF, and compare")
+
+
+def followed_note(spec: MethodSpec, unrestricted: bool, label: str) -> str:
+    return (f"{label}: the {reference_kind(spec, unrestricted)} reference became unstable "
+            f"{STABILITY_TAG} and was moved to the lower SCF solution, as asked "
+            "(--follow-instability); the surface changes character there, check the states "
+            "before and after")
+
+
+#: marks the run-level stability messages (tasks collect them from every accepted step)
+STABILITY_TAG = "(internal stability analysis)"
 
 
 def warm_density(mol: Any, mo_coeff: np.ndarray, mo_occ: np.ndarray) -> np.ndarray:

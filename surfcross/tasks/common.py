@@ -59,6 +59,10 @@ class RunOptions:
         After a minimization, compute the finite-difference Hessian and frequencies of the
         state (6N gradient evaluations); with ``follow_imaginary`` displace along an
         imaginary mode and continue.
+    follow_instability
+        When the internal stability analysis finds the warm-started SCF reference unstable
+        mid-run, move to the lower SCF solution and continue there (default: report it with
+        the remedies and stay on the followed solution).
     """
 
     coordinates: str = "auto"
@@ -75,6 +79,7 @@ class RunOptions:
     follow_imaginary: bool = False
     warm_start: bool = True
     characterize: bool = True
+    follow_instability: bool = False
 
     def __post_init__(self) -> None:
         if self.coordinates not in COORDINATES:

@@ -14,7 +14,7 @@ from ..states import StateLabel, parse_state
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
 from .common import RunOptions, TaskResult, method_warnings, prepare_method
 from ..units import BOHR_IN_ANGSTROM
-from .run import finish_task, run_optimization, task_spec
+from .run import final_stability, finish_task, run_optimization, task_spec
 
 __all__ = ["relax"]
 
@@ -53,7 +53,18 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
     """
     label = parse_state(state)
     spec = prepare_method(method, [label], geometry)  # impossible requests: before any SCF
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    if engine is not None:
+        return _relax(geometry, label, spec, options, run_dir, observers, progress, engine,
+                      resume_state)
+    with build_engine(spec, run_dir, warm_start=options.warm_start,
+                      follow_instability=options.follow_instability) as own:
+        return _relax(geometry, label, spec, options, run_dir, observers, progress, own,
+                      resume_state)
+
+
+def _relax(geometry: Geometry, label: StateLabel, spec: MethodSpec, options: RunOptions,
+           run_dir: Any, observers: Iterable[Callable], progress: bool, engine: Any,
+           resume_state: dict | None) -> TaskResult:
     warnings = method_warnings(spec, [label])
     data: dict[str, Any] = {}
     start = geometry if resume_state else _at_targets(geometry, options)
@@ -84,6 +95,7 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         start = displace_along(result.geometry, mode, IMAGINARY_DISPLACEMENT)
     if result.value.evaluation is not None:
         warnings += list(result.value.evaluation.warnings)
+    warnings += final_stability(engine, result)
     return finish_task("relax", result, [label], spec, run_dir, warnings=warnings, data=data,
                        reorderings=reorderings)
 
