@@ -8,26 +8,21 @@ Markers (registered in pyproject.toml):
 * ``slow`` -- the test takes more than about ten seconds on one core.
 
 The guard below keeps the ``pyscf`` marker honest: a test without it that builds a PySCF
-molecule (every PySCF calculation starts with ``Mole.build``) or imports PySCF fails with a
-message saying which marker to add. Calculations in subprocesses cannot be seen from here;
-modules that start the program mark themselves.
+molecule (every PySCF calculation starts with ``Mole.build``) fails with a message saying which
+marker to add. Importing PySCF's plain data tables (element data) is not running PySCF.
+Calculations in subprocesses cannot be seen from here; modules that start the program mark
+themselves.
 """
 
 from __future__ import annotations
 
-import sys
-
 import pytest
 
 _BUILDS = [0]
-_PATCHED = [False]
 
 
-def _patch_mole_build() -> None:
-    """Count Mole.build calls once PySCF has been imported by someone (never import it here:
-    the quick loop must not pay for it)."""
-    if _PATCHED[0] or "pyscf.gto" not in sys.modules:
-        return
+def pytest_sessionstart(session):
+    """Count every Mole.build of the session (PySCF is imported here for that)."""
     from pyscf import gto
 
     original = gto.Mole.build
@@ -37,21 +32,12 @@ def _patch_mole_build() -> None:
         return original(self, *args, **kwargs)
 
     gto.Mole.build = counted
-    _PATCHED[0] = True
 
 
 @pytest.fixture(autouse=True)
 def _pyscf_marker_guard(request):
-    _patch_mole_build()
-    imported = "pyscf" in sys.modules
     builds = _BUILDS[0]
     yield
-    marked = request.node.get_closest_marker("pyscf") is not None
-    if marked:
-        return
-    if not imported and "pyscf" in sys.modules:
-        pytest.fail("this test imports PySCF: mark it (or its module) with pytest.mark.pyscf",
-                    pytrace=False)
-    if _BUILDS[0] != builds:
+    if request.node.get_closest_marker("pyscf") is None and _BUILDS[0] != builds:
         pytest.fail("this test runs PySCF: mark it (or its module) with pytest.mark.pyscf",
                     pytrace=False)

@@ -115,7 +115,6 @@ def test_meci_is_twisted_and_pyramidalized_with_linear_opening(coupling_search, 
     probe = probe_crossing(engine, g, ("S0", "S1"), plane_from_value(result.value))
     assert probe.verdict == "conical", probe.message
     assert all(order < 1.5 for order in probe.opening_orders)
-    assert result.evaluations < 40
 
 
 def test_plane_update_search_reaches_the_same_intersection(coupling_search, record_property):
@@ -129,4 +128,3 @@ def test_plane_update_search_reaches_the_same_intersection(coupling_search, reco
     assert rmsd(result.geometry.coords_bohr, reference.geometry.coords_bohr) * BOHR_IN_ANGSTROM < 0.02
     e_ref = np.mean(list(reference.energies_eh.values()))
     assert np.mean(list(result.energies_eh.values())) == pytest.approx(e_ref, abs=2e-4)
-    assert result.evaluations < 40

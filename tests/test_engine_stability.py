@@ -35,14 +35,8 @@ def _ch2(angle_deg=60.0, r=1.1):
 def _stable_uhf_energy(geom):
     mol = gto.M(atom=[(s, c) for s, c in zip(geom.symbols, geom.coords_bohr)], unit="Bohr",
                 basis="sto-3g", spin=2, verbose=0)
-    mf = scf.UHF(mol).run(conv_tol=1e-10)
-    first = mf.e_tot
-    for _ in range(3):
-        mo = mf.stability(external=False)[0]
-        if np.allclose(mo, mf.mo_coeff, atol=1e-6):
-            break
-        mf.kernel(mf.make_rdm1(mo, mf.mo_occ))
-    return first, mf.e_tot
+    first, stable, _ = _stable_energy(mol, True)
+    return first, stable
 
 
 def test_high_spin_reference_is_the_stable_solution():
@@ -60,11 +54,19 @@ def _h2(r):
 
 
 def _stable_energy(mol, unrestricted):
-    """PySCF SCF, then its internal stability analysis followed by hand until stable."""
+    """PySCF SCF, then its internal stability analysis followed by hand until stable.
+
+    The analysis is asked without point-group restrictions (with_symmetry=False, which also
+    puts the lowest diagonal direction into its Davidson guess): with them its guess has no
+    component along a symmetry-breaking mode, and finding one then depends on rounding.
+    """
+    from pyscf.scf.stability import rhf_internal, uhf_internal
+
+    internal = uhf_internal if unrestricted else rhf_internal
     mf = (scf.UHF if unrestricted else scf.RHF)(mol).run(conv_tol=1e-10)
     first = mf.e_tot
     for _ in range(5):
-        mo, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
+        mo, stable = internal(mf, with_symmetry=False, return_status=True, tol=1e-6)
         if stable:
             break
         mf.kernel(mf.make_rdm1(mo, mf.mo_occ))

@@ -25,6 +25,11 @@ __all__ = ["ScfResult", "Capacity", "build_molecule", "capacity", "check_functio
 
 #: analyse the reference again once an atom has moved this far (bohr) since the last analysis
 STABILITY_SPACING_BOHR = 0.2
+#: lowest orbital-Hessian eigenvalue (Eh) below -this: unstable (PySCF's own threshold)
+STABILITY_TOL = 1e-5
+#: orbital-rotation spaces up to this size are diagonalized densely
+STABILITY_DENSE_LIMIT = 120
+_STABILITY_SEED = 20261203
 #: what the engine does with a warm-started reference found unstable mid-run
 STABILITY_MODES = ("report", "follow")
 
@@ -224,19 +229,65 @@ def run_reference(mol: Any, spec: MethodSpec, unrestricted: bool,
         + "or try another basis")
 
 
+def _lowest_hessian_mode(hessian_x: Any, hdiag: np.ndarray) -> tuple[float, np.ndarray]:
+    """Lowest eigenvalue and eigenvector of the orbital-rotation Hessian.
+
+    Small problems are diagonalized densely. Larger ones use PySCF's Davidson solver from
+    unit vectors on the smallest diagonal elements plus a fixed-seed dense admixture: a guess
+    built from the orbital gradient alone (which is zero by symmetry along a
+    symmetry-breaking instability) can miss the unstable mode, or find it only through
+    rounding noise, so that the verdict would depend on the BLAS kernel.
+    """
+    dim = hdiag.size
+    if dim <= STABILITY_DENSE_LIMIT:
+        h = np.column_stack([hessian_x(e) for e in np.eye(dim)])
+        w, v = np.linalg.eigh(0.5 * (h + h.T))
+        return float(w[0]), v[:, 0]
+    from pyscf import lib
+
+    k = min(4, dim)
+    guess = np.eye(dim)[np.argsort(hdiag, kind="stable")[:k]]
+    noise = np.random.default_rng(_STABILITY_SEED).standard_normal(guess.shape)
+    guess = guess + 1e-2 * noise / np.linalg.norm(noise, axis=1)[:, None]
+
+    def precond(dx, e, *_):
+        d = hdiag - e
+        d[np.abs(d) < 1e-8] = 1e-8
+        return dx / d
+
+    e, v = lib.davidson(hessian_x, list(guess), precond, tol=1e-8, nroots=min(3, dim),
+                        max_cycle=100)
+    return float(np.atleast_1d(e)[0]), np.asarray(v[0] if np.ndim(e) else v)
+
+
 def internal_stability(mf: Any) -> tuple[bool, Any]:
-    """PySCF's internal stability analysis of a converged RHF/UHF/RKS/UKS reference.
+    """Internal stability analysis of a converged RHF/UHF/RKS/UKS reference.
 
     Internal: orbital rotations that keep the kind of reference (restricted stays
-    restricted). Returns (stable, orbitals rotated along the unstable mode, or the
-    unchanged orbitals when stable).
+    restricted). The orbital Hessian is PySCF's (the one its second-order SCF solver uses),
+    without point-group restrictions; the reference is unstable when its lowest eigenvalue
+    is below -STABILITY_TOL. Returns (stable, orbitals rotated along the lowest mode when
+    unstable, else the unchanged orbitals).
     """
-    verbose = mf.verbose
-    try:
-        mo_i, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
-    finally:
-        mf.verbose = verbose
-    return bool(stable), mo_i
+    from pyscf.scf import stability as pyscf_stability
+    from pyscf.soscf import newton_ah
+
+    unrestricted = np.ndim(mf.mo_occ) == 2
+    gen = newton_ah.gen_g_hop_uhf if unrestricted else newton_ah.gen_g_hop_rhf
+    _, hop, hdiag = gen(mf, mf.mo_coeff, mf.mo_occ, with_symmetry=False)
+
+    def hessian_x(x):  # the full Hessian times x (PySCF's convention, see its stability module)
+        return np.asarray(hop(x)).real * 2
+
+    lowest, mode = _lowest_hessian_mode(hessian_x, 2 * np.asarray(hdiag, float))
+    if lowest > -STABILITY_TOL:
+        return True, mf.mo_coeff
+    if unrestricted:
+        nov = int((mf.mo_occ[0] > 0).sum() * (mf.mo_occ[0] == 0).sum())
+        mo = (pyscf_stability._rotate_mo(mf.mo_coeff[0], mf.mo_occ[0], mode[:nov]),
+              pyscf_stability._rotate_mo(mf.mo_coeff[1], mf.mo_occ[1], mode[nov:]))
+        return False, np.asarray(mo)
+    return False, pyscf_stability._rotate_mo(mf.mo_coeff, mf.mo_occ, mode)
 
 
 def stabilize(mf: Any, spec: MethodSpec, unrestricted: bool,

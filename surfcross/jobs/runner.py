@@ -130,6 +130,8 @@ def run_options_from_task(options: Mapping[str, Any]) -> RunOptions:
         kwargs["convergence_overrides"] = overrides
     if "frozen_atoms" in options:  # 1-based in the file, 0-based inside
         kwargs["constraints"] = tuple(Constraint("atom", (a - 1,)) for a in options["frozen_atoms"])
+    if "follow_instability" in options:
+        kwargs["follow_instability"] = bool(options["follow_instability"])
     return RunOptions(**kwargs)
 
 

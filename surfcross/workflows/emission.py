@@ -146,7 +146,8 @@ def emission(geometry: Geometry, method: MethodSpec, *, state: str | StateLabel 
                          "to emit from, e.g. S1")
     spec = prepare_method(method, [label], geometry)
     own = engine is None
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start,
+                                    follow_instability=options.follow_instability)
     try:
         return _run(geometry, spec, label, options, relax_ground, zero_point, run_dir,
                     progress, engine)

@@ -240,7 +240,8 @@ def scan(geometry: Geometry, method: MethodSpec, *, atoms: Sequence[int],
     check_labels(geometry, labels)
     spec = prepare_method(method, labels, geometry)
     own = engine is None
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start,
+                                    follow_instability=options.follow_instability)
     try:
         if mode == "rigid":
             rows, evaluations, roots, notes = _rigid(geometry, atoms, values, options, engine)
