@@ -37,7 +37,7 @@ from surfcross.units import BOHR_IN_ANGSTROM
 
 pytest.importorskip("pyscf")
 
-pytestmark = pytest.mark.pyscf
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 _SPEC = MethodSpec(method="casscf", basis="sto-3g", roots=1, active_space=(2, 2))
 

@@ -21,7 +21,7 @@ from surfcross.objectives.searches import make_crossing_objective, optimizer_set
 from surfcross.optimize import ConvergenceSettings, Optimizer, OptimizerSettings
 from surfcross.states import parse_state
 
-pytestmark = pytest.mark.pyscf
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 
 class _Surfaces:

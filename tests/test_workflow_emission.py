@@ -42,7 +42,7 @@ from surfcross.units import HARTREE_IN_EV
 from surfcross.workflows import emission
 from surfcross.workflows.emission import start_is_minimum
 
-pytestmark = pytest.mark.pyscf
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 EV_NM = constants.h * constants.c / constants.e * 1e9  # photon energy x wavelength, eV nm
 EV_CM = constants.e / (constants.h * constants.c * 100.0)  # cm^-1 per eV

@@ -21,7 +21,7 @@ import pytest
 from surfcross.data import example_geometry
 from surfcross.units import HARTREE_IN_EV
 
-pytestmark = pytest.mark.pyscf
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 JOB = """
 title = "formaldehyde photophysics"

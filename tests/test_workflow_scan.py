@@ -117,6 +117,7 @@ def test_seam_scan_point_is_a_crossing_with_the_twist_held():
     assert any("reference" in w for w in result.warnings)  # S0 crossings: wrong dimension
 
 
+@pytest.mark.slow
 def test_ethylene_twist_on_s0_peaks_at_90_degrees(tmp_path):
     (tmp_path / "ethylene.xyz").write_text(example_geometry("ethylene").to_xyz("ethylene"))
     env = dict(os.environ, OMP_NUM_THREADS="1")

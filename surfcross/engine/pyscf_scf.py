@@ -28,7 +28,7 @@ STABILITY_SPACING_BOHR = 0.2
 #: lowest orbital-Hessian eigenvalue (Eh) below -this: unstable (PySCF's own threshold)
 STABILITY_TOL = 1e-5
 #: orbital-rotation spaces up to this size are diagonalized densely
-STABILITY_DENSE_LIMIT = 120
+STABILITY_DENSE_LIMIT = 24
 _STABILITY_SEED = 20261203
 #: what the engine does with a warm-started reference found unstable mid-run
 STABILITY_MODES = ("report", "follow")
@@ -255,7 +255,7 @@ def _lowest_hessian_mode(hessian_x: Any, hdiag: np.ndarray) -> tuple[float, np.n
         d[np.abs(d) < 1e-8] = 1e-8
         return dx / d
 
-    e, v = lib.davidson(hessian_x, list(guess), precond, tol=1e-8, nroots=min(3, dim),
+    e, v = lib.davidson(hessian_x, list(guess), precond, tol=1e-6, nroots=min(2, dim),
                         max_cycle=100)
     return float(np.atleast_1d(e)[0]), np.asarray(v[0] if np.ndim(e) else v)
 
