@@ -81,11 +81,11 @@ class PySCFResponseEngine(EngineBase):
         TDA/CIS, response vectors (Davidson guess, carried through the MO overlap). Off = cold
         starts, useful for benchmarks and when consecutive geometries are unrelated.
     stability
-        Internal stability analysis of the SCF reference runs at every cold start (an
-        unstable solution is then always replaced by the lower one) and again whenever an
-        atom has moved more than STABILITY_SPACING_BOHR since the last analysis. A
-        warm-started reference found unstable there is reported with the remedies
-        ('report', default) or moved to the lower solution ('follow').
+        Internal stability analysis of the SCF reference runs at the first geometry and
+        again whenever an atom has moved more than STABILITY_SPACING_BOHR since the last
+        analysis. A cold-started reference found unstable there is always replaced by the
+        lower solution; a warm-started one is reported with the remedies ('report', default)
+        or moved to the lower solution ('follow').
     """
 
     def __init__(self, spec: MethodSpec, *, log_path: str | None = None,
@@ -178,7 +178,7 @@ class PySCFResponseEngine(EngineBase):
         mf = result.mf
         coords = np.asarray(geometry.coords_bohr)
         last = self._previous.get(f"analysed:{slot}")
-        if prev is None or last is None or np.abs(coords - last).max() > STABILITY_SPACING_BOHR:
+        if last is None or np.abs(coords - last).max() > STABILITY_SPACING_BOHR:
             mf = self._analyse(mf, unrestricted, prev is not None, slot, counts, warnings)
             self._previous[f"analysed:{slot}"] = coords.copy()
         times["scf"] += time.perf_counter() - start
