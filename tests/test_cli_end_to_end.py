@@ -118,6 +118,7 @@ def test_cross_methylene_singlet_triplet_is_degenerate_in_pyscf(work):
     assert data["energies_eh"]["S0"] == pytest.approx(singlet, abs=1e-6)
 
 
+@pytest.mark.slow
 def test_step_limit_then_resume_equals_uninterrupted_run(work, water_s1):
     first = run("-q", "relax", "water.xyz", "--state", "S1", "--method", "cis",
                 "--max-steps", "3", "--out", "s1_cut", cwd=work)
@@ -169,6 +170,7 @@ def _default_signals() -> None:
     signal.signal(signal.SIGINT, signal.SIG_DFL)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("signum,code", [(signal.SIGINT, 130), (signal.SIGTERM, -signal.SIGTERM)],
                          ids=["SIGINT", "SIGTERM"])
 def test_interrupt_with_a_signal_then_resume(work, water_s1, signum, code):

@@ -146,6 +146,7 @@ def outcomes(tmp_path_factory) -> dict[str, subprocess.CompletedProcess]:
         return dict(pool.map(one, [(case, args) for case, args, _ in CASES]))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("case,args,expected", CASES, ids=[c[0] for c in CASES])
 def test_bad_input_gives_exit_2_and_one_line(outcomes, case, args, expected):
     proc = outcomes[case]
@@ -157,6 +158,7 @@ def test_bad_input_gives_exit_2_and_one_line(outcomes, case, args, expected):
     assert expected in lines[0], lines[0]
 
 
+@pytest.mark.slow
 def test_unknown_key_message_says_how_to_fix(outcomes):
     line = outcomes["unknown TOML key"].stderr.strip()
     # names the file, the task and the nearest valid key
