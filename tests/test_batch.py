@@ -68,7 +68,7 @@ def _inputs(folder: Path, broken: bool = True) -> tuple[Path, Path]:
 def _final(batch: Path, molecule: str, task: str = "s0") -> tuple[float, np.ndarray]:
     result = json.loads((batch / molecule / task / "result.json").read_text())
     geom = read_xyz(batch / molecule / task / "final.xyz")
-    return result["target_energies_eh"]["S0"], geom.coords_angstrom
+    return result["energies_eh"]["S0"], geom.coords_angstrom
 
 
 def _assert_same(batch: Path, reference: Path, molecules=MOLECULES) -> None:

@@ -16,6 +16,8 @@ from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 from surfcross.states import parse_state
 
+pytestmark = pytest.mark.pyscf
+
 pytest.importorskip("pyscf")
 
 # our own distorted ethylene (angstrom): no symmetry, S0/S1 well separated (~6 eV)

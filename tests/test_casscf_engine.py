@@ -11,6 +11,8 @@ from surfcross.engine.casscf_checks import property_warnings
 from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 
+pytestmark = pytest.mark.pyscf
+
 pytest.importorskip("pyscf")
 
 _SYMBOLS = ["C", "C", "H", "H", "H", "H"]
@@ -60,6 +62,7 @@ def _twisted(degrees):
     return xyz
 
 
+@pytest.mark.slow
 def test_energies_agree_with_direct_pyscf_along_a_path():
     # Reference library: PySCF SA-2-CASSCF(2,2) run from RHF orbitals at each geometry; the
     # engine carries orbitals from the previous geometry (10 degree twist steps), which must

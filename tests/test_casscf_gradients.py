@@ -11,6 +11,8 @@ from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 from surfcross.states import parse_state
 
+pytestmark = pytest.mark.pyscf
+
 pytest.importorskip("pyscf")
 
 # Ethylene, slightly twisted and distorted so that no symmetry hides sign errors (our own

@@ -39,7 +39,7 @@ from surfcross.units import BOHR_IN_ANGSTROM
 
 pytest.importorskip("pyscf")
 
-pytestmark = pytest.mark.slow
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 _SPEC = MethodSpec(method="casscf", basis="sto-3g", roots=1, active_space=(2, 2))
 
@@ -117,7 +117,6 @@ def test_meci_is_twisted_and_pyramidalized_with_linear_opening(coupling_search, 
     probe = probe_crossing(engine, g, ("S0", "S1"), plane_from_value(result.value))
     assert probe.verdict == "conical", probe.message
     assert all(order < 1.5 for order in probe.opening_orders)
-    assert result.evaluations < 40
 
 
 def test_plane_update_search_reaches_the_same_intersection(coupling_search, record_property):

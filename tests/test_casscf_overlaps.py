@@ -10,6 +10,8 @@ from surfcross.engine.casscf_wavefunction import ao_cross_overlap, casscf_overla
 from surfcross.errors import InputError
 from surfcross.geometry import Geometry
 
+pytestmark = pytest.mark.pyscf
+
 pytest.importorskip("pyscf")
 
 # our own distorted ethylene (angstrom)

@@ -28,6 +28,8 @@ from surfcross.states import parse_states
 from surfcross.tasks.common import method_warnings
 from surfcross.units import BOHR_IN_ANGSTROM
 
+pytestmark = pytest.mark.pyscf
+
 # water near its experimental structure, angstrom (our own test input)
 WATER = "3\nwater\nO 0.0 0.0 0.117\nH 0.0 0.757 -0.470\nH 0.0 -0.757 -0.470\n"
 EXE = shutil.which("surfcross")
@@ -295,6 +297,7 @@ H2CO_S1 = ("4\nformaldehyde\nC -0.1193 0.0 -0.0609\nO 0.0339 0.0 1.2390\n"
 
 
 @needs_exe
+@pytest.mark.slow
 def test_ground_state_crossing_warns_once_about_the_reference(tmp_path):
     # the reference/response caveat (common practice for linear response) is stated, once
     (tmp_path / "h2co.xyz").write_text(H2CO_S1)
@@ -325,6 +328,7 @@ def test_rigid_scan_prints_the_energies(water_dir):
 
 
 @needs_exe
+@pytest.mark.slow
 def test_emission_from_a_state_that_is_not_the_lowest_warns(tmp_path):
     # formaldehyde, CIS/STO-3G: the followed T1 ends as root T2 at its minimum (our own
     # scenario); Kasha's rule (emission from the lowest state of a multiplicity; common

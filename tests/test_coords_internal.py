@@ -100,6 +100,7 @@ def test_gradient_dot_step_equals_cartesian_gradient_dot_displacement():
     assert np.isclose(np.sum(g_x * dx), system.gradient(xyz, g_x) @ dq, rtol=1e-4)
 
 
+@pytest.mark.pyscf
 def test_gradient_against_pyscf_hf_water():
     # reference library: PySCF analytic RHF/STO-3G gradient and energies. The q-space
     # gradient must predict the energy change along a back-transformed internal step.

@@ -24,7 +24,7 @@ from surfcross.optimize import ConvergenceSettings, Optimizer, OptimizerSettings
 from surfcross.states import parse_state
 from surfcross.units import BOHR_IN_ANGSTROM
 
-pytestmark = pytest.mark.slow
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
 
 
 class _Surfaces:

@@ -13,6 +13,8 @@ from surfcross.analysis.curvature import (external_modes, finite_difference_hess
                                           harmonic_analysis)
 from surfcross.geometry import Geometry
 
+pytestmark = pytest.mark.pyscf
+
 # HF/STO-3G water minimum: 0.98941 angstrom, 100.027 degrees (PySCF, tight SCF; agrees with the
 # NIST CCCBDB calculated geometry 0.989 angstrom / 100.0 degrees, the latter recalled from memory)
 R, THETA = 0.98941, np.radians(100.027)

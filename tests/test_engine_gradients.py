@@ -18,7 +18,7 @@ from surfcross.engine.pyscf_response import PySCFResponseEngine
 from surfcross.geometry import Geometry
 from surfcross.states import parse_state
 
-pytestmark = pytest.mark.slow
+pytestmark = pytest.mark.pyscf
 
 STEP = 1e-3  # bohr
 # (atom, Cartesian axis) pairs that are differentiated

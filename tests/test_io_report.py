@@ -25,8 +25,9 @@ PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 def _result(**changes):
     out = {"task": "cross", "converged": False, "iterations": 12, "evaluations": 15,
-           "states": ["S1", "S2"], "energies_eh": {"S0": -75.0, "S1": -74.7, "S2": -74.69},
-           "target_energies_eh": {"S1": -74.7, "S2": -74.69}, "gap_eh": 0.01,
+           "states": ["S1", "S2"], "energies_eh": {"S1": -74.7, "S2": -74.69},
+           "adiabatic_energies_eh": {"S0": -75.0, "S1": -74.7, "S2": -74.69},
+           "followed_roots": {"S1": "S1", "S2": "S2"}, "gap_eh": 0.01,
            "gap_ev": 0.01 * HARTREE_IN_EV, "method": MethodSpec(method="tda").to_dict(),
            "search": "penalty", "warnings": ["low overlap at step 4"], "final_xyz": "final.xyz"}
     out.update(changes)
@@ -45,6 +46,7 @@ def test_report_sections():
     assert "| gap | 5.000e-04 | 1.000e-03 | Eh | yes |" in text
     # energies above S0 in eV: (E - E_S0) * Eh-in-eV (CODATA via scipy, see test_units)
     assert f"{0.3 * HARTREE_IN_EV:.4f}" in text and "| **S1** |" in text and "| S0 |" in text
+    assert "| **S1** | -74.7000000000 |" in text
     assert f"{0.01 * HARTREE_IN_EV:.5f} eV" in text
     assert "| pitch | 0.051 |" in text and "| topography | peaked |" in text
     assert "step 4: S1 now root S2" in text and "low overlap at step 4" in text
@@ -52,6 +54,22 @@ def test_report_sections():
     assert "Crossing search: penalty" in text
     assert text.rstrip().endswith(CAUTION)
     assert "doubly excited" in text  # limits of linear response are stated
+
+
+def test_report_names_the_followed_state_and_its_adiabatic_root():
+    # our own scenario: S3 was followed and ends as the lowest singlet (adiabatic S1), with
+    # another state (adiabatic S3 at the end) above it
+    result = _result(task="relax", states=["S3"], energies_eh={"S3": -74.80},
+                     adiabatic_energies_eh={"S0": -75.0, "S1": -74.80, "S2": -74.75,
+                                            "S3": -74.70},
+                     followed_roots={"S3": "S1"}, gap_eh=None, gap_ev=None)
+    text = render_report(result)
+    followed = f"| **S3** | -74.8000000000 | {0.2 * HARTREE_IN_EV:.4f} | S1 |"
+    assert followed in text
+    # the adiabatic table marks the root that carries S3, and the other S3 is not bold
+    assert f"| **S1** | -74.8000000000 | {0.2 * HARTREE_IN_EV:.4f} | S3 |" in text
+    assert f"| S3 | -74.7000000000 | {0.3 * HARTREE_IN_EV:.4f} | - |" in text
+    assert "| **S3** | -74.7" not in text
 
 
 def test_limits_depend_on_the_states():

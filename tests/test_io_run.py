@@ -27,7 +27,8 @@ from surfcross.units import HARTREE_IN_EV  # noqa: E402
 
 # the keys listed for result.json in ARCHITECTURE.md ("Contracts")
 CONTRACT_KEYS = {"task", "converged", "iterations", "evaluations", "states", "energies_eh",
-                 "gap_ev", "final_xyz", "method", "search", "warnings"}
+                 "adiabatic_energies_eh", "followed_roots", "gap_ev", "final_xyz", "method",
+                 "search", "warnings"}
 
 
 def test_default_names_never_overwrite(tmp_path):
@@ -94,9 +95,11 @@ def test_progress_lines_and_header(tmp_path, caplog):
                 "method": MethodSpec(method="cis").to_dict()}
     run.save_task(TASK, settings)
     _run_steps(run, 3)
-    text = caplog.text
+    # every setting goes to settings.txt; the log (the terminal) gets one line naming it
+    text = run.settings_txt.read_text()
     for name in ("optimizer.max_steps", "optimizer.trust_radius", "method.basis", "method.roots"):
-        assert name in text
+        assert name in text and name not in caplog.text
+    assert "settings.txt" in caplog.text
     lines = [r.getMessage() for r in caplog.records if r.getMessage().startswith("step")]
     assert len(lines) == 4
     assert "[following S1 on root S1]" in lines[0]
@@ -135,7 +138,10 @@ def test_finish_writes_contract_files(tmp_path):
     assert CONTRACT_KEYS <= set(loaded) and set(RESULT_KEYS) == CONTRACT_KEYS
     assert loaded == json.loads(dumps(written))
     assert loaded["final_xyz"] == "final.xyz" and loaded["converged"] is True
-    assert loaded["energies_eh"] == {"S0": -74.957, "S1": -74.506, "S2": -74.403}
+    # the followed S1 sits on root S2 at the last step: its energy is S2's, under its own name
+    assert loaded["energies_eh"] == {"S1": -74.403}
+    assert loaded["adiabatic_energies_eh"] == {"S0": -74.957, "S1": -74.506, "S2": -74.403}
+    assert loaded["followed_roots"] == {"S1": "S2"}
     assert loaded["gap_ev"] is None and loaded["search"] is None
     assert loaded["method"]["method"] == "cis"
     assert any("state reordering at step 3" in w for w in loaded["warnings"])

@@ -30,6 +30,8 @@ from surfcross.optimize.loop import Optimizer
 from surfcross.tracking import TrackingOptions
 from surfcross.units import BOHR_IN_ANGSTROM
 
+pytestmark = pytest.mark.pyscf
+
 SPEC = MethodSpec(method="cis", basis="sto-3g", roots=5)
 
 

@@ -16,6 +16,8 @@ from surfcross.data import example_geometry
 from surfcross.io.run import RunDirectory
 from surfcross.units import BOHR_IN_ANGSTROM
 
+pytestmark = pytest.mark.pyscf
+
 HF = MethodSpec(method="cis", basis="sto-3g", roots=2)
 
 
@@ -95,3 +97,53 @@ def test_freezing_every_atom_is_refused():
     frozen = tuple(Constraint("atom", (i,)) for i in range(3))
     with pytest.raises(InputError, match="every atom is frozen"):
         relax(_water(), "S0", HF, options=RunOptions(constraints=frozen), progress=False)
+
+
+def _sigma_minus_energy(geometry: Geometry) -> float:
+    """CIS/6-31G energy of the lowest 1Sigma- state of CO, by PySCF with symmetry.
+
+    PySCF works in the C2v subgroup of C-infinity-v: a Sigma- state is an A2 root without a
+    degenerate A1 partner (the A2 components of Delta states have one).
+    """
+    from pyscf import tdscf
+
+    mol = gto.M(atom=[(s, tuple(c)) for s, c in zip(geometry.symbols, geometry.coords_bohr)],
+                unit="Bohr", basis="6-31g", symmetry=True, verbose=0)
+    mf = scf.RHF(mol).run(conv_tol=1e-11)
+    roots = {}
+    for irrep in ("A1", "A2"):
+        td = tdscf.TDA(mf)
+        td.wfnsym, td.nstates, td.conv_tol = irrep, 4, 1e-9
+        td.kernel()
+        assert all(td.converged)
+        roots[irrep] = np.asarray(td.e_tot)
+    lone = [e for e in roots["A2"] if np.min(np.abs(roots["A1"] - e)) > 1e-6]
+    return float(lone[0])
+
+
+def test_followed_state_keeps_its_label_in_every_record(tmp_path):
+    # CO at its HF/6-31G bond length (1.1135 angstrom, PySCF optimum to 1e-4): adiabatic S3
+    # is the 1Sigma- state; stretching the bond brings it below the 1Pi pair, so at the
+    # minimum of that state it is adiabatic S1 (PySCF with symmetry, reference library)
+    co = Geometry.from_angstrom(["C", "O"], [[0, 0, 0], [0, 0, 1.1135]])
+    start = _sigma_minus_energy(co)
+    run = RunDirectory.create(tmp_path / "co")
+    res = relax(co, "S3", MethodSpec(method="cis", basis="6-31g", roots=6), run_dir=run,
+                progress=False)
+    assert res.converged
+    expected = _sigma_minus_energy(res.geometry)
+    assert expected < start - 0.01  # the state was minimized, not just relabelled
+    data = json.loads(run.result_json.read_text())
+    assert data["states"] == ["S3"]
+    assert data["energies_eh"]["S3"] == pytest.approx(expected, abs=1e-6)
+    assert data["followed_roots"]["S3"] != "S3"
+    root = data["followed_roots"]["S3"]
+    assert data["adiabatic_energies_eh"][root] == pytest.approx(expected, abs=1e-6)
+    assert data["adiabatic_energies_eh"]["S3"] != pytest.approx(expected, abs=1e-4)
+    # the report's followed row and the first field of the final.xyz comment say the same
+    row = next(line for line in run.report_md.read_text().splitlines()
+               if line.startswith("| **S3** |"))
+    assert float(row.split("|")[2]) == pytest.approx(expected, abs=1e-9)
+    comment = run.final_xyz.read_text().splitlines()[1]
+    assert float(comment.split("E_S3=")[1].split()[0]) == pytest.approx(expected, abs=1e-9)
+    assert res.energies_eh["S3"] == pytest.approx(expected, abs=1e-6)

@@ -23,6 +23,8 @@ from surfcross.geometry import Geometry
 from surfcross.tracking import StateTracker, TrackingOptions
 from surfcross.tracking.overlap import mo_overlap
 
+pytestmark = pytest.mark.pyscf
+
 R_OH = 0.96 / 0.529177210903  # bohr; water-like bond length (our scenario)
 
 

@@ -22,6 +22,8 @@ from surfcross.engine.wavefunction import ManifoldWavefunction, ReferenceWavefun
 from surfcross.tracking.overlap import (determinant_overlap, first_order_overlaps,
                                         manifold_overlaps, mo_overlap, spin_block)
 
+pytestmark = pytest.mark.pyscf
+
 WATER = "O 0 0 {z}; H 0 {y} -0.47; H 0 -0.76 -0.47"
 
 

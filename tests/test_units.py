@@ -39,6 +39,7 @@ def test_values_against_published_tables():
     assert units.AU_FREQUENCY_IN_WAVENUMBER == pytest.approx(5140.487, abs=1e-2)
 
 
+@pytest.mark.pyscf
 def test_against_pyscf_tables():
     # PySCF's own constant table (reference library; older CODATA, so 1e-7 relative)
     from pyscf.data import nist

@@ -21,6 +21,8 @@ import pytest
 from surfcross.data import example_geometry
 from surfcross.units import HARTREE_IN_EV
 
+pytestmark = [pytest.mark.pyscf, pytest.mark.slow]
+
 JOB = """
 title = "formaldehyde photophysics"
 [molecule]
@@ -95,7 +97,7 @@ def test_path_task_passes_through_earlier_results(job):
     profile = job["line"]["profile"]
     assert profile["given_points"] == [0, 2, 4]
     assert profile["x_unit"] == "amu^1/2 angstrom"
-    em = job["em"]["energies_eh"]
+    em = job["em"]["adiabatic_energies_eh"]
     base = profile["reference_eh"]
     for label, curve in profile["adiabatic_ev"].items():
         assert curve[2] == pytest.approx((em[label] - base) * HARTREE_IN_EV, abs=1e-5)

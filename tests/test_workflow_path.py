@@ -32,6 +32,8 @@ from surfcross.units import BOHR_IN_ANGSTROM, HARTREE_IN_EV
 from surfcross.workflows import pathway
 from surfcross.workflows.path import align_chain, interpolate_segment, path_length
 
+pytestmark = pytest.mark.pyscf
+
 METHOD = MethodSpec(method="cis", basis="sto-3g", roots=3)
 
 

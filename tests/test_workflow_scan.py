@@ -35,6 +35,8 @@ from surfcross.units import ANGSTROM_IN_BOHR, HARTREE_IN_EV
 from surfcross.workflows import scan, scan_values
 from surfcross.workflows.scan import coordinate_value, drive_coordinate
 
+pytestmark = pytest.mark.pyscf
+
 CIS = MethodSpec(method="cis", basis="sto-3g", roots=3)
 
 
@@ -90,7 +92,7 @@ def test_rigid_scan_matches_engine_at_hand_built_geometries():
             xyz[1] = xyz[0] + bond / np.linalg.norm(bond) * value * ANGSTROM_IN_BOHR
             energies = engine.states(water.with_coords(xyz)).energies()
             for label, e in energies.items():
-                assert point["energies_eh"][label] == pytest.approx(e, abs=1e-7)
+                assert point["adiabatic_energies_eh"][label] == pytest.approx(e, abs=1e-7)
     assert len(profile["connected_ev"]) == len(profile["adiabatic_ev"])
 
 
@@ -115,6 +117,7 @@ def test_seam_scan_point_is_a_crossing_with_the_twist_held():
     assert any("reference" in w for w in result.warnings)  # S0 crossings: wrong dimension
 
 
+@pytest.mark.slow
 def test_ethylene_twist_on_s0_peaks_at_90_degrees(tmp_path):
     (tmp_path / "ethylene.xyz").write_text(example_geometry("ethylene").to_xyz("ethylene"))
     env = dict(os.environ, OMP_NUM_THREADS="1")

@@ -55,18 +55,18 @@ def is_converged(result: Mapping[str, Any]) -> bool:
 
 
 def followed_energies(result: Mapping[str, Any]) -> dict[str, float]:
-    """{label: Eh} of the states the task followed, at its final geometry."""
-    data = result.get("target_energies_eh")
-    if not isinstance(data, Mapping) or not data:
-        states = result.get("states") or []
-        every = state_energies(result)
-        data = {s: every[s] for s in states if s in every}
+    """{label: Eh} of the states the task followed (named at the start, followed by
+    overlap), at its final geometry: result.json's ``energies_eh``."""
+    data = result.get("energies_eh")
+    if not isinstance(data, Mapping):
+        return {}
     return {str(k): float(v) for k, v in data.items() if v is not None}
 
 
 def state_energies(result: Mapping[str, Any]) -> dict[str, float]:
-    """{label: Eh} of every state computed at the final geometry."""
-    data = result.get("energies_eh")
+    """{label: Eh} of every state computed at the final geometry, by energy order there
+    (``adiabatic_energies_eh``; results without it list the followed states only)."""
+    data = result.get("adiabatic_energies_eh") or result.get("energies_eh")
     if not isinstance(data, Mapping):
         return {}
     return {str(k): float(v) for k, v in data.items() if v is not None}

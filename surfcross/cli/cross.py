@@ -39,7 +39,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
 def run(args: argparse.Namespace) -> int:
     labels = parse_states(args.states, count=2)
     geometry = geometry_from_args(args)
-    spec = prepare_method(method_from_args(args), labels)
+    spec = prepare_method(method_from_args(args), labels, geometry,
+                          strict_roots=args.roots is not None)
     check_high_spin_pair(labels, spec)  # before any folder is made
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "cross")

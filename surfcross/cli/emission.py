@@ -58,7 +58,8 @@ def print_photophysics(data: dict) -> None:
 def run(args: argparse.Namespace) -> int:
     label = parse_state(args.state)
     geometry = geometry_from_args(args)
-    spec = prepare_method(method_from_args(args), [label])
+    spec = prepare_method(method_from_args(args), [label], geometry,
+                          strict_roots=args.roots is not None)
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "emission")
     result = emission(geometry, spec, state=label, options=options,

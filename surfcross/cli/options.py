@@ -121,6 +121,9 @@ def add_run_options(parser: argparse.ArgumentParser, *, crossing: bool = False) 
                    help="stop with an error when a state cannot be matched confidently")
     g.add_argument("--cold-start", action="store_true",
                    help="no SCF/response guesses from the previous geometry")
+    g.add_argument("--follow-instability", action="store_true",
+                   help="when the SCF reference becomes unstable mid-run (internal stability "
+                        "analysis), move to the lower SCF solution instead of only reporting it")
     g.add_argument("--freeze", default=None, metavar="I,J,..",
                    help="keep these atoms (1-based) fixed")
     if not crossing:
@@ -188,7 +191,8 @@ def run_options_from_args(args: argparse.Namespace):
         constraints=tuple(constraints),
         curvature_check=getattr(args, "check_curvature", False),
         follow_imaginary=getattr(args, "follow_imaginary", False),
-        warm_start=not args.cold_start, characterize=not getattr(args, "no_probe", False))
+        warm_start=not args.cold_start, characterize=not getattr(args, "no_probe", False),
+        follow_instability=getattr(args, "follow_instability", False))
 
 
 def open_run_dir(args: argparse.Namespace, task: str):

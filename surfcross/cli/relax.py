@@ -31,7 +31,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
 def run(args: argparse.Namespace) -> int:
     label = parse_state(args.state)
     geometry = geometry_from_args(args)
-    spec = prepare_method(method_from_args(args), [label])
+    spec = prepare_method(method_from_args(args), [label], geometry,
+                          strict_roots=args.roots is not None)
     options = run_options_from_args(args)
     run_dir = open_run_dir(args, "relax")
     result = relax(geometry, label, spec, options=options, run_dir=run_dir,

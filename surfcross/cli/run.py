@@ -41,7 +41,8 @@ def _task_line(o: TaskOutcome) -> str:
     r = o.result
     if r.task not in ("states", "path"):
         head += f" after {r.iterations} steps"
-    parts = [f"E({k}) = {v:.8f} Eh" for k, v in r.data.get("target_energies_eh", {}).items()]
+    followed = r.data.get("energies_eh", {}) if r.task not in ("states", "path") else {}
+    parts = [f"E({k}) = {v:.8f} Eh" for k, v in followed.items()]
     if r.data.get("gap_ev") is not None:
         parts.append(f"gap {r.data['gap_ev'] / HARTREE_IN_EV:.1e} Eh")
     if r.task == "states":

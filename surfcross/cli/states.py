@@ -10,6 +10,7 @@ from ..analysis.spin_orbit import OPERATORS, SpinOrbitCouplings
 from ..analysis.vertical import VerticalRow, limits_note, vertical_rows, vertical_summary
 from ..engine import make_engine
 from ..errors import InputError
+from ..tasks.common import prepare_method
 from .options import add_geometry_argument, add_method_options, geometry_from_args, method_from_args
 
 __all__ = ["add_parser", "run", "format_table", "format_couplings"]
@@ -94,6 +95,8 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("--triplet-count applies to the linear-response methods only")
     if args.soc:
         spec = _soc_spec(args, geometry, spec)
+    spec = prepare_method(spec, [], geometry, strict_roots=args.roots is not None
+                          or args.triplet_count > 0)
     kwargs = {"log_path": args.pyscf_log} if args.pyscf_log else {}
     engine = make_engine(spec, **kwargs)
     try:

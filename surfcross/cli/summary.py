@@ -21,8 +21,11 @@ def print_summary(result: TaskResult) -> None:
         print(f"  reason: {result.message}")
         if result.status == "step limit reached" and result.run_dir is not None:
             print(f"  continue with: surfcross resume {result.run_dir} --more-steps N")
-    for label, e in data.get("target_energies_eh", {}).items():
-        print(f"  E({label}) = {e:.8f} Eh")
+    roots = data.get("followed_roots") or {}
+    for label, e in data.get("energies_eh", {}).items():
+        root = roots.get(label, label)
+        where = "" if root == label else f"  (adiabatic root {root} at the final geometry)"
+        print(f"  E({label}) = {e:.8f} Eh{where}")
     if data.get("gap_ev") is not None:
         print(f"  gap = {data['gap_ev']:.4f} eV ({data['gap_ev'] / HARTREE_IN_EV:.2e} Eh)")
     branching = data.get("branching")

@@ -60,8 +60,24 @@ def manifold_wavefunction(mf: Any, roots: ResponseRoots | None, includes_referen
 
 def response_states(mf: Any, roots: ResponseRoots, manifold: str, first_index: int,
                     oscillator: bool, warnings: list[str]) -> list[StateInfo]:
-    """StateInfo records of the reported response roots; appends warnings for low roots."""
+    """StateInfo records of the reported response roots; appends warnings for low roots.
+
+    Imaginary roots of a full response (``roots.imaginary``) keep their labels: the real
+    roots are numbered above them, so the labels of the missing ones are absent from the
+    evaluation instead of passing to the next real root.
+    """
     e_exc = roots.excitation_eh
+    if roots.imaginary:
+        missing = [str(StateLabel(manifold, first_index + k)) for k in range(roots.imaginary)]
+        first_index += roots.imaginary
+        kind = {"S": "singlet", "T": "triplet"}.get(manifold, "")
+        warnings.append(
+            f"{', '.join(missing)}: imaginary excitation energ{'ies' if len(missing) > 1 else 'y'}"
+            f" (the reference is unstable towards {'a lower solution' if kind != 'triplet' else 'an unrestricted (triplet) solution'} "
+            f"along {'them' if len(missing) > 1 else 'it'}); full response has no real root "
+            f"there, so {'these labels are' if len(missing) > 1 else 'this label is'} missing "
+            f"and the next real root is {StateLabel(manifold, first_index)}, not relabelled. "
+            "Use TDA (it keeps such states as negative roots) or an unrestricted reference")
     amps = roots.amplitudes()
     f = np.asarray(roots.td.oscillator_strength()[: roots.nreport]) if oscillator else None
     s_ao = mf.mol.intor_symmetric("int1e_ovlp") if roots.unrestricted else None

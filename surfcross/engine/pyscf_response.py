@@ -44,9 +44,11 @@ from ..geometry import Geometry
 from ..states import StateLabel, parse_states
 from .base import EngineBase, Evaluation, MethodSpec, StateInfo
 from .pyscf_records import (manifold_wavefunction, reference_spin_square, response_states)
-from .pyscf_scf import build_molecule, check_functional, run_reference, stabilize, warm_density
-from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, make_response, project_guess,
-                            solve_response)
+from .pyscf_scf import (STABILITY_MODES, STABILITY_SPACING_BOHR, build_molecule,
+                        check_functional, followed_note, instability_note, internal_stability,
+                        run_reference, stabilize, warm_density)
+from .pyscf_tdsolve import (EXTRA_ROOTS, ResponseRoots, excitation_dimension, make_response,
+                            project_guess, solve_response)
 from .wavefunction import ResponseWavefunction
 
 __all__ = ["PySCFResponseEngine"]
@@ -78,18 +80,28 @@ class PySCFResponseEngine(EngineBase):
         Start each geometry from the previous one's orbitals (SCF density guess) and, for
         TDA/CIS, response vectors (Davidson guess, carried through the MO overlap). Off = cold
         starts, useful for benchmarks and when consecutive geometries are unrelated.
+    stability
+        Internal stability analysis of the SCF reference runs at the first geometry and
+        again whenever an atom has moved more than STABILITY_SPACING_BOHR since the last
+        analysis. A cold-started reference found unstable there is always replaced by the
+        lower solution; a warm-started one is reported with the remedies ('report', default)
+        or moved to the lower solution ('follow').
     """
 
     def __init__(self, spec: MethodSpec, *, log_path: str | None = None,
-                 warm_start: bool = True) -> None:
+                 warm_start: bool = True, stability: str = "report") -> None:
         if spec.method == "casscf":
             raise InputError("method casscf is handled by the CASSCF engine, not the response one")
         if spec.triplets == "high-spin" and spec.triplet_roots > 1:
             raise InputError("the high-spin reference gives one triplet (T1) only; ask for 1 "
                              "triplet or use response triplets for more")
         check_functional(spec.xc)
+        if stability not in STABILITY_MODES:
+            raise InputError(f"unknown stability mode {stability!r}: choose "
+                             f"{', '.join(STABILITY_MODES)}")
         self.spec = spec
         self.warm_start = warm_start
+        self.stability = stability
         self._log = open(log_path, "a") if log_path else None
         self._verbose = 4 if log_path else 0
         self._held: _Held | None = None
@@ -127,7 +139,8 @@ class PySCFResponseEngine(EngineBase):
         counts = {"scf": 0, "response": 0}
         times = {"scf": 0.0, "response": 0.0}
         manifold = "" if unrestricted else "S"
-        mf = self._reference(geometry, geometry.spin, unrestricted, "ref", counts, times)
+        mf = self._reference(geometry, geometry.spin, unrestricted, "ref", counts, times,
+                             warnings)
         held = _Held(wavefunction=None, mf=mf)
         states: list[StateInfo] = [self._reference_state(mf, manifold, geometry.spin,
                                                          unrestricted, warnings)]
@@ -153,7 +166,7 @@ class PySCFResponseEngine(EngineBase):
             homo=None if unrestricted else int((mf.mo_occ > 0).sum()) - 1)
 
     def _reference(self, geometry: Geometry, spin: int, unrestricted: bool, slot: str,
-                   counts: dict, times: dict) -> Any:
+                   counts: dict, times: dict, warnings: list[str]) -> Any:
         start = time.perf_counter()
         mol = build_molecule(geometry, self.spec, spin, self._log, self._verbose)
         prev = self._previous.get(slot) if self.warm_start else None
@@ -163,14 +176,33 @@ class PySCFResponseEngine(EngineBase):
             logger.info("SCF converged with the %s fallback", result.strategy)
         counts["scf"] += result.cycles
         mf = result.mf
-        if prev is None and unrestricted:
-            # cold start of an unrestricted reference: make sure it is not an excited SCF
-            # solution, which warm starts would otherwise carry through the whole run
-            mf, extra = stabilize(mf, self.spec, unrestricted)
-            counts["scf"] += extra
+        coords = np.asarray(geometry.coords_bohr)
+        last = self._previous.get(f"analysed:{slot}")
+        if last is None or np.abs(coords - last).max() > STABILITY_SPACING_BOHR:
+            mf = self._analyse(mf, unrestricted, prev is not None, slot, counts, warnings)
+            self._previous[f"analysed:{slot}"] = coords.copy()
         times["scf"] += time.perf_counter() - start
         self._previous[slot] = {"mo_coeff": np.array(mf.mo_coeff), "mo_occ": np.array(mf.mo_occ)}
         return mf
+
+    def _analyse(self, mf: Any, unrestricted: bool, warm: bool, slot: str, counts: dict,
+                 warnings: list[str]) -> Any:
+        """Internal stability analysis of a converged reference (see ``stability``).
+
+        A cold start moves to the lower solution without asking: nothing ties it to the
+        unstable one, which warm starts would otherwise carry through the whole run.
+        """
+        label = "T1" if slot == "high-spin" else ("0" if unrestricted and slot == "ref" else "S0")
+        if warm and self.stability == "report":
+            stable, _ = internal_stability(mf)
+            if not stable:
+                warnings.append(instability_note(self.spec, unrestricted, label))
+            return mf
+        new, extra, _ = stabilize(mf, self.spec, unrestricted)
+        counts["scf"] += extra
+        if warm and new is not mf:
+            warnings.append(followed_note(self.spec, unrestricted, label))
+        return new
 
     def _reference_state(self, mf: Any, manifold: str, spin: int, unrestricted: bool,
                          warnings: list[str]) -> StateInfo:
@@ -192,7 +224,8 @@ class PySCFResponseEngine(EngineBase):
         # took more iterations from projected (X, Y) than from its own orbital-energy guess
         # in our checks (water, formaldehyde; STO-3G and 6-31G), so full response starts cold.
         prev = self._previous.get(slot) if self.warm_start and not full else None
-        x0 = project_guess(prev, mf.mol, mf, nroots + EXTRA_ROOTS) if prev else None
+        wanted = min(nroots + EXTRA_ROOTS, excitation_dimension(mf))
+        x0 = project_guess(prev, mf.mol, mf, wanted) if prev else None
         what = {"S": "singlet response", "T": "triplet response"}.get(manifold, "response")
         roots = solve_response(td, nroots, full=full, unrestricted=unrestricted, x0=x0, what=what)
         warnings += roots.notes
@@ -207,7 +240,7 @@ class PySCFResponseEngine(EngineBase):
                   manifolds: dict, counts: dict, times: dict, warnings: list[str]) -> list[StateInfo]:
         spec = self.spec
         if spec.triplets == "high-spin":
-            hs = self._reference(geometry, 2, True, "high-spin", counts, times)
+            hs = self._reference(geometry, 2, True, "high-spin", counts, times, warnings)
             held.high_spin = hs
             label = StateLabel("T", 1)
             s2 = reference_spin_square(hs, label, 2, warnings)
@@ -277,6 +310,28 @@ class PySCFResponseEngine(EngineBase):
             return label_irreps(evaluation, {s.label: "A" for s in evaluation.states}, group)
         mol = build_molecule(geometry, self.spec, geometry.spin, None, 0)
         return label_irreps(evaluation, state_irreps(evaluation, group, mol), group)
+
+    def check_reference(self, evaluation: Evaluation) -> list[str]:
+        """Internal stability analysis of the references behind ``evaluation`` (the last one
+        computed), unless it ran at that geometry already; for the end of a run. Returns
+        warnings (never moves to another solution: the run is over)."""
+        held = self._held
+        if held is None or evaluation.wavefunction is not held.wavefunction:
+            return []
+        coords = np.asarray(evaluation.geometry.coords_bohr)
+        unrestricted = np.ndim(held.mf.mo_occ) == 2
+        notes = []
+        with self._pyscf_output():
+            for slot, mf, label in (("ref", held.mf, "0" if unrestricted else "S0"),
+                                    ("high-spin", held.high_spin, "T1")):
+                last = self._previous.get(f"analysed:{slot}")
+                if mf is None or (last is not None and np.array_equal(last, coords)):
+                    continue
+                stable, _ = internal_stability(mf)
+                if not stable:
+                    notes.append(instability_note(self.spec, np.ndim(mf.mo_occ) == 2, label)
+                                 .replace("became unstable", "is unstable at the final geometry"))
+        return notes
 
     # ------------------------------------------------------------------ the rest
     def overlaps(self, bra: Evaluation, ket: Evaluation) -> dict[str, np.ndarray]:

@@ -19,7 +19,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..errors import ResponseNotConvergedError
+from ..errors import InputError, ResponseNotConvergedError
 
 __all__ = ["ResponseRoots", "make_response", "solve_response", "cis_like_amplitudes",
            "project_guess", "spread_guess", "EXTRA_ROOTS"]
@@ -51,6 +51,9 @@ class ResponseRoots:
     iterations: int
     nreport: int
     notes: list[str] = field(default_factory=list)
+    #: full response only: lowest excitations whose energy is imaginary (dropped by PySCF's
+    #: solver); the reported roots are the ones above them
+    imaginary: int = 0
 
     @property
     def excitation_eh(self) -> np.ndarray:
@@ -82,6 +85,10 @@ def make_response(mf: Any, method: str, unrestricted: bool, singlet: bool, conv_
         # TDA is Hermitian: keep zero and negative roots so that instabilities are reported
         # instead of silently dropped (PySCF drops roots below 1e-3 Eh by default).
         td.positive_eig_threshold = -1e3
+    else:
+        # full response: keep small real roots too; imaginary ones cannot be kept by the
+        # solver and are counted separately (imaginary_roots)
+        td.positive_eig_threshold = 1e-8
     return td
 
 
@@ -114,9 +121,20 @@ def _converged_flags(td: Any, n: int) -> np.ndarray:
     return flags
 
 
+def excitation_dimension(mf: Any) -> int:
+    """Number of single excitations (occupied x virtual, per spin for unrestricted) of ``mf``."""
+    occ = np.asarray(mf.mo_occ)
+    if occ.ndim == 2:
+        return int(sum((o > 0).sum() * (o == 0).sum() for o in occ))
+    return int((occ > 0).sum() * (occ == 0).sum())
+
+
 def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
                    x0: np.ndarray | None, what: str) -> ResponseRoots:
     """Solve for ``needed`` roots (+ EXTRA_ROOTS) and check every root's convergence.
+
+    No more roots are asked than there are excitations (``excitation_dimension``); asking
+    for more than that is an InputError, raised before any SCF by the tasks.
 
     Attempt 1: ``needed + EXTRA_ROOTS`` roots from ``x0`` (or PySCF's orbital-energy guess),
     with the symmetry-breaking admixture of :func:`spread_guess`.
@@ -126,9 +144,13 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
     When only the extra roots stall, attempt 2 is made once and its outcome accepted.
     Raises :class:`ResponseNotConvergedError` when any asked root is still unconverged.
     """
-    nstates = needed + EXTRA_ROOTS
+    dim = excitation_dimension(td._scf)
+    if needed > dim:
+        raise InputError(f"{what}: {needed} roots asked, but there are only {dim} excitations "
+                         "in this basis; ask for fewer roots or use a larger basis")
+    nstates = min(needed + EXTRA_ROOTS, dim)
     attempts = [(nstates, FIRST_MAX_CYCLE, x0), (nstates, RETRY_MAX_CYCLE, "restart"),
-                (nstates + 2, RETRY_MAX_CYCLE, None)]
+                (min(nstates + 2, dim), RETRY_MAX_CYCLE, None)]
     iterations = 0
     for k, (n, cycles, guess) in enumerate(attempts):
         if isinstance(guess, str):
@@ -160,12 +182,70 @@ def solve_response(td: Any, needed: int, *, full: bool, unrestricted: bool,
     extra = 0
     while extra < EXTRA_ROOTS and needed + extra < len(flags) and flags[needed + extra]:
         extra += 1
+    # the non-Hermitian solver drops imaginary roots: count them, for the labels
+    imaginary = imaginary_roots(td, nstates) if full else 0
     result = ResponseRoots(td=td, full=full, unrestricted=unrestricted,
-                           iterations=iterations, nreport=needed + extra)
-    if extra < EXTRA_ROOTS:
+                           iterations=iterations, nreport=needed + extra, imaginary=imaginary)
+    if extra < min(EXTRA_ROOTS, dim - imaginary - needed):
         result.notes.append(f"{what}: only {extra} of {EXTRA_ROOTS} extra roots above the asked "
                             "ones converged; state tracking has less room above the top root")
     return result
+
+
+#: largest response dimension for which the full-response stability matrices are built densely
+DENSE_LIMIT = 600
+#: eigenvalues below -this (Eh) count as negative
+NEGATIVE_TOL = 1e-6
+
+
+def _response_blocks(td: Any) -> tuple[np.ndarray, np.ndarray]:
+    """Dense A+B and A-B of a full-response object (from its own matrix-vector product:
+    the upper half of vind([X, Y]) is A X + B Y)."""
+    vind, hdiag = td.gen_vind()
+    dim = np.asarray(hdiag).size // 2
+    eye = np.eye(dim)
+    blocks = []
+    for sign in (1.0, -1.0):
+        cols = [np.asarray(vind(np.hstack([eye[k:k + 100], sign * eye[k:k + 100]])))[:, :dim]
+                for k in range(0, dim, 100)]
+        m = np.vstack(cols)
+        blocks.append(0.5 * (m + m.T))
+    return blocks[0], blocks[1]
+
+
+def imaginary_roots(td: Any, lowest: int) -> int:
+    """How many of the lowest excitations of a full (TDHF/TDDFT) response are imaginary.
+
+    Real orbitals: the excitation energies are the square roots of the eigenvalues of
+    (A - B)(A + B); a negative eigenvalue is an imaginary excitation (the reference is
+    unstable along it), which PySCF's non-Hermitian solver drops, so the next real root would
+    take its label. Small problems are diagonalized densely; larger ones count the negative
+    eigenvalues of A + B among its ``lowest`` ones (Davidson), which by Sylvester's law of
+    inertia is the same number while A - B is positive definite, the usual case.
+    """
+    vind, hdiag = td.gen_vind()
+    dim = np.asarray(hdiag).size // 2
+    if dim <= DENSE_LIMIT:
+        apb, amb = _response_blocks(td)
+        w = np.linalg.eigvals(amb @ apb)
+        return int(np.sum((w.real < -NEGATIVE_TOL) | (np.abs(w.imag) > NEGATIVE_TOL)))
+    from pyscf import lib
+
+    diag = np.asarray(hdiag)[:dim]
+
+    def apply(x):
+        x = np.atleast_2d(x)
+        return np.asarray(vind(np.hstack([x, x])))[:, :dim]
+
+    def precond(dx, e, *_):
+        d = diag - e
+        d[np.abs(d) < 1e-8] = 1e-8
+        return dx / d
+
+    k = min(max(lowest, 1), dim)
+    guess = np.eye(dim)[np.argsort(diag)[:k]]
+    e, _ = lib.davidson(lambda x: apply(x)[0], list(guess), precond, nroots=k, tol=1e-8)
+    return int(np.sum(np.atleast_1d(e) < -NEGATIVE_TOL))
 
 
 def spread_guess(td: Any, n: int, guess: np.ndarray | None) -> np.ndarray:

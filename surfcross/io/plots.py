@@ -51,22 +51,31 @@ def _save(fig: Any, path: str | os.PathLike) -> Path:
 
 def plot_energies(path: str | os.PathLike, steps: Sequence[int],
                   energies_eh: Mapping[str, Sequence[float]], *,
-                  reference_eh: float | None = None, highlight: Sequence[str] = ()) -> Path | None:
-    """Energies of all computed states (eV above ``reference_eh``, default the lowest value)
-    against the step number. Followed states in ``highlight`` are drawn thicker."""
+                  reference_eh: float | None = None,
+                  followed_eh: Mapping[str, Sequence[float]] | None = None) -> Path | None:
+    """Energies against the step number (eV above ``reference_eh``, default the lowest value).
+
+    ``energies_eh`` are the adiabatic roots (energy order at each step: thin, dashed lines
+    labelled 'root S1', ...); ``followed_eh`` the followed states (thick lines under their
+    task labels), which may pass from one root to another.
+    """
     made = _figure()
     if made is None:
         return None
     fig, ax = made
     values = {k: np.asarray(v, float) for k, v in energies_eh.items()}
-    finite = [v[np.isfinite(v)] for v in values.values()]
+    followed = {k: np.asarray(v, float) for k, v in (followed_eh or {}).items()}
+    finite = [v[np.isfinite(v)] for v in list(values.values()) + list(followed.values())]
     base = reference_eh if reference_eh is not None else min(float(f.min()) for f in finite if f.size)
     for label, curve in values.items():
-        ax.plot(steps, (curve - base) * HARTREE_IN_EV, marker="o", markersize=3,
-                linewidth=2.5 if label in highlight else 1.0, label=label)
+        ax.plot(steps, (curve - base) * HARTREE_IN_EV, marker=".", markersize=2, linewidth=0.8,
+                linestyle="--", label=f"root {label}")
+    for label, curve in followed.items():
+        ax.plot(steps, (curve - base) * HARTREE_IN_EV, marker="o", markersize=4, linewidth=2.5,
+                label=f"{label} (followed)")
     ax.set_xlabel("step")
     ax.set_ylabel("energy / eV")
-    ax.set_title("state energies along the optimization")
+    ax.set_title("followed states and adiabatic roots along the optimization")
     ax.legend(fontsize="small")
     return _save(fig, path)
 
@@ -108,7 +117,9 @@ def plot_profile(path: str | os.PathLike, x: Sequence[float],
 def history_plots(directory: str | os.PathLike, history: Mapping[str, np.ndarray],
                   state_labels: Sequence[str], target_labels: Sequence[str] = ()) -> list[Path]:
     """energies.png (and gap.png when a gap was recorded) from checkpoint history arrays;
-    accepted steps only. Returns the files written (empty without matplotlib or history)."""
+    accepted steps only. ``state_labels`` name the adiabatic columns of
+    ``state_energies_eh``, ``target_labels`` the followed columns of ``target_energies_eh``.
+    Returns the files written (empty without matplotlib or history)."""
     if not history or not have_matplotlib():
         return []
     directory = Path(directory)
@@ -119,8 +130,11 @@ def history_plots(directory: str | os.PathLike, history: Mapping[str, np.ndarray
         return []
     made = []
     energies = {lab: table[:, j] for j, lab in enumerate(state_labels)}
-    out = plot_energies(directory / "energies.png", steps, energies,
-                        highlight=[t for t in target_labels if t in energies])
+    followed = {}
+    if target_labels and "target_energies_eh" in history:
+        targets = np.asarray(history["target_energies_eh"])[keep]
+        followed = {lab: targets[:, j] for j, lab in enumerate(target_labels)}
+    out = plot_energies(directory / "energies.png", steps, energies, followed_eh=followed)
     made += [out] if out else []
     gap_ev = np.asarray(history["gap_eh"])[keep] * HARTREE_IN_EV
     if np.any(np.isfinite(gap_ev)):

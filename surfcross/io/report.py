@@ -110,23 +110,47 @@ def _criteria_section(criteria: Sequence[Any]) -> list[str]:
     return _table(("criterion", "value", "threshold", "unit", "passed"), rows)
 
 
+def _finite(energies: Mapping[str, Any] | None) -> dict[str, float]:
+    return {k: float(v) for k, v in (energies or {}).items() if v is not None}
+
+
 def _energy_section(result: Mapping[str, Any]) -> list[str]:
-    energies = {k: v for k, v in (result.get("energies_eh") or {}).items() if v is not None}
-    if not energies:
+    """Two tables: the followed states (task labels: names at the start geometry, followed by
+    overlap) with the adiabatic root carrying each, and every computed state in energy order
+    at the final geometry with the followed state it carries."""
+    followed = _finite(result.get("energies_eh"))
+    adiabatic = _finite(result.get("adiabatic_energies_eh")) or followed
+    if not followed and not adiabatic:
         return ["No energies were recorded."]
-    ref = reference_label(energies)
-    targets = set(result.get("target_energies_eh") or {}) | set(result.get("states") or [])
-    irreps = result.get("irreps") or {}
-    rows = [(f"**{label}**" if label in targets else label, f"{e:.10f}",
-             f"{(e - energies[ref]) * HARTREE_IN_EV:.4f}")
+    roots = {str(k): str(v) for k, v in (result.get("followed_roots") or {}).items()}
+    ref = reference_label(adiabatic)
+    base = adiabatic[ref]
+    lines: list[str] = []
+    same = (set(followed) == set(adiabatic)
+            and all(roots.get(k, k) == k for k in followed))
+    if followed and not same:
+        rows = [(f"**{label}**", f"{e:.10f}", f"{(e - base) * HARTREE_IN_EV:.4f}",
+                 roots.get(label, "-")) for label, e in followed.items()]
+        lines += ["Followed states (named by their order at the start geometry and followed by "
+                  f"wavefunction overlap; eV relative to {ref} at the final geometry):", ""]
+        lines += _table(("followed state", "energy / Eh", f"above {ref} / eV",
+                         "adiabatic root here"), rows)
+        lines += [""]
+    carried = {}
+    for label, root in roots.items():
+        carried.setdefault(root, []).append(label)
+    irreps = result.get("irreps") or {}  # point-group labels of the adiabatic roots
+    rows = [(f"**{label}**" if label in carried else label, f"{e:.10f}",
+             f"{(e - base) * HARTREE_IN_EV:.4f}")
             + ((irreps.get(label) or "-",) if irreps else ())
-            for label, e in energies.items()]
-    lines = [f"Energies at the final geometry (eV relative to {ref}; followed states in bold). "
-             "Labels of all computed states are adiabatic (energy order) at this geometry."]
-    header = ("state", "energy / Eh", f"above {ref} / eV")
+            + (", ".join(carried.get(label, [])) or "-",)
+            for label, e in adiabatic.items()]
+    lines += [f"All computed states at the final geometry, labelled by their energy order there "
+              f"(adiabatic roots; eV relative to {ref}):", ""]
+    header = ("adiabatic root", "energy / Eh", f"above {ref} / eV")
     if irreps:
         header += (f"irrep ({result.get('point_group', '?')})",)
-    lines += [""] + _table(header, rows)
+    lines += _table(header + ("carries followed state",), rows)
     gap = result.get("gap_ev")
     if gap is not None:
         gap_eh = result.get("gap_eh", gap / HARTREE_IN_EV)

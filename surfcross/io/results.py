@@ -31,12 +31,17 @@ __all__ = [
     "complete_result",
     "result_dict",
     "all_state_energies",
+    "followed_roots",
     "reorderings",
 ]
 
-#: keys every result.json holds (values may be null where they do not apply, e.g. gap_ev)
+#: keys every result.json holds (values may be null where they do not apply, e.g. gap_ev).
+#: ``energies_eh`` is keyed by the followed (task) labels, the names at the start geometry;
+#: ``adiabatic_energies_eh`` holds every computed state in energy order at the final geometry
+#: and ``followed_roots`` maps each followed label to its adiabatic root there.
 RESULT_KEYS = ("task", "converged", "iterations", "evaluations", "states", "energies_eh",
-               "gap_ev", "final_xyz", "method", "search", "warnings")
+               "adiabatic_energies_eh", "followed_roots", "gap_ev", "final_xyz", "method",
+               "search", "warnings")
 
 
 def _key(key: Any) -> str:
@@ -108,6 +113,25 @@ def complete_result(result: Mapping[str, Any], final_xyz: str = "final.xyz") -> 
     return out
 
 
+def followed_roots(value: Any) -> dict[str, str]:
+    """{followed label: adiabatic label of the root carrying it} behind an ObjectiveValue.
+
+    From the tracker's target -> root assignment when recorded, else the objective's
+    ``info`` ('target'/'root'); a value without either maps each followed label to itself.
+    """
+    tracking = getattr(value, "tracking", None)
+    assignment = dict(((getattr(tracking, "info", None) or {}).get("assignment") or {}))
+    if assignment:
+        return {str(t): str(r) for t, r in assignment.items()}
+    targets, roots = getattr(tracking, "targets", ()), getattr(tracking, "roots", ())
+    if len(targets) == 1 and len(roots) == 1:  # (pairs list their roots by energy)
+        return {str(targets[0]): str(roots[0])}
+    info = getattr(value, "info", None) or {}
+    if "target" in info and "root" in info:
+        return {str(info["target"]): str(info["root"])}
+    return {str(k): str(k) for k in value.energies_eh}
+
+
 def all_state_energies(value: Any) -> dict[str, float]:
     """{label: Eh} of every computed state behind an ObjectiveValue (adiabatic labels of its
     evaluation), falling back to the followed states when there is no evaluation."""
@@ -175,8 +199,9 @@ def result_dict(*, task: str, result: Any, states: Sequence[str | StateLabel],
         "iterations": int(result.iterations),
         "evaluations": int(result.evaluations),
         "states": [str(s) for s in states],
-        "energies_eh": all_state_energies(value),
-        "target_energies_eh": {str(k): float(v) for k, v in value.energies_eh.items()},
+        "energies_eh": {str(k): float(v) for k, v in value.energies_eh.items()},
+        "adiabatic_energies_eh": all_state_energies(value),
+        "followed_roots": followed_roots(value),
         "gap_eh": None if gap_eh is None else float(gap_eh),
         "gap_ev": None if gap_eh is None else float(gap_eh) * HARTREE_IN_EV,
         "method": method.to_dict() if hasattr(method, "to_dict") else dict(method),

@@ -30,7 +30,7 @@ from ..errors import InputError
 from ..geometry import Geometry
 from .checkpoint import CheckpointData, CheckpointWriter, load_checkpoint
 from .plots import NO_PLOTS_NOTE, have_matplotlib, history_plots, plot_profile
-from .progress import ProgressWriter, log_settings
+from .progress import ProgressWriter, settings_lines
 from .report import render_report
 from .results import complete_result, write_json_atomic
 from .trajectory import TrajectoryWriter, trim_trajectory
@@ -38,6 +38,7 @@ from .trajectory import TrajectoryWriter, trim_trajectory
 __all__ = ["RunDirectory", "default_run_name", "discard_unused"]
 
 log = logging.getLogger(__name__)
+progress_log = logging.getLogger("surfcross.progress")
 
 RESULT_FILE = "result.json"
 TRAJECTORY_FILE = "trajectory.xyz"
@@ -45,6 +46,7 @@ FINAL_FILE = "final.xyz"
 CHECKPOINT_FILE = "checkpoint.h5"
 REPORT_FILE = "report.md"
 PYSCF_LOG_FILE = "pyscf.log"
+SETTINGS_FILE = "settings.txt"
 
 Observer = Callable[[Any], None]
 
@@ -142,6 +144,11 @@ class RunDirectory:
         return self.path / REPORT_FILE
 
     @property
+    def settings_txt(self) -> Path:
+        """Every effective setting of the task, one per line (written by :meth:`save_task`)."""
+        return self.path / SETTINGS_FILE
+
+    @property
     def pyscf_log(self) -> Path:
         """File for PySCF's own output (pass to the engine)."""
         return self.path / PYSCF_LOG_FILE
@@ -158,14 +165,21 @@ class RunDirectory:
 
     def save_task(self, spec: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> None:
         """Store the task definition (kind, states, method dict, options, input geometry) and
-        the effective settings in the checkpoint, and log the settings header.
+        the effective settings in the checkpoint, and write the settings list to
+        ``settings.txt`` (never to the terminal: one progress line names the file).
 
         ``spec`` holds nested dicts, lists, numbers, strings, arrays and Geometry objects.
         """
         self._task = dict(spec)
         self._settings = dict(settings if settings is not None else spec)
         self._writer().set_task(self._task, self._settings)
-        log_settings(self._settings, title=f"{spec.get('kind', 'task')} settings")
+        text = "\n".join(settings_lines(self._settings,
+                                        title=f"{spec.get('kind', 'task')} settings")) + "\n"
+        tmp = self.settings_txt.with_name(SETTINGS_FILE + ".partial")
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, self.settings_txt)
+        progress_log.info("%s: run folder %s (every setting in %s)", spec.get("kind", "task"),
+                          self.path, SETTINGS_FILE)
 
     def _writer(self) -> CheckpointWriter:
         if self._checkpoint is None:
@@ -204,7 +218,7 @@ class RunDirectory:
         if branching is not None:
             out.setdefault("branching", dict(branching))
         comment = " ".join([f"{out['task']} final"] + [
-            f"E_{k}={v:.10f}" for k, v in (out.get("target_energies_eh") or out["energies_eh"]).items()
+            f"E_{k}={v:.10f}" for k, v in out["energies_eh"].items()
             if v is not None])
         tmp = self.final_xyz.with_name(FINAL_FILE + ".partial")
         tmp.write_text(final_geometry.to_xyz(comment), encoding="utf-8")
@@ -226,7 +240,7 @@ class RunDirectory:
         if self.checkpoint_h5.exists():
             data = load_checkpoint(self.checkpoint_h5)
             made += history_plots(self.path, data.history, data.state_labels,
-                                  [str(s) for s in result.get("states", [])])
+                                  data.target_labels)
         if profile is not None:
             out = plot_profile(self.path / "profile.png", profile["x"], profile["curves_ev"],
                                xlabel=profile.get("xlabel", "point"))
@@ -236,7 +250,7 @@ class RunDirectory:
 
 
 def discard_unused(path: str | os.PathLike) -> bool:
-    """Remove ``path`` if it holds nothing but empty folders and PySCF logs.
+    """Remove ``path`` if it holds nothing but empty folders, PySCF logs and settings lists.
 
     Used when bad input stops a command after its run folder was made: no half-empty folder
     is left behind to be mistaken for a run. Returns True when the folder was removed.
@@ -248,7 +262,7 @@ def discard_unused(path: str | os.PathLike) -> bool:
         if entry.is_dir() and not entry.is_symlink():
             if not discard_unused(entry):
                 return False
-        elif entry.name != PYSCF_LOG_FILE:
+        elif entry.name not in (PYSCF_LOG_FILE, SETTINGS_FILE):
             return False
     for entry in path.iterdir():
         entry.unlink()

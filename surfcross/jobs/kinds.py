@@ -161,6 +161,8 @@ _OPT = {
     "overlap_threshold": KeyRule(type="float", low=0.0, high=1.0, open_low=True,
                                  doc="smallest wavefunction overlap accepted when following a state"),
     "frozen_atoms": KeyRule(type="atoms", length=(1, 10**9), doc="atoms held fixed (1-based)"),
+    "follow_instability": KeyRule(type="bool", doc="move to the lower SCF solution when the "
+                                  "reference becomes unstable mid-run (default: report it)"),
 }
 
 

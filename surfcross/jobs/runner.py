@@ -75,7 +75,9 @@ class TaskOutcome:
         if self.result is not None:
             data = self.result.data
             out.update({"iterations": self.result.iterations, "states": list(self.result.states)})
-            for key in ("target_energies_eh", "gap_ev", "search", "warnings"):
+            keys = ("gap_ev", "search", "warnings") if self.result.task == "states" else \
+                ("energies_eh", "followed_roots", "gap_ev", "search", "warnings")
+            for key in keys:
                 if data.get(key) is not None:
                     out[key] = data[key]
             if self.result.task == "states":
@@ -132,6 +134,8 @@ def run_options_from_task(options: Mapping[str, Any]) -> RunOptions:
         kwargs["convergence_overrides"] = overrides
     if "frozen_atoms" in options:  # 1-based in the file, 0-based inside
         kwargs["constraints"] = tuple(Constraint("atom", (a - 1,)) for a in options["frozen_atoms"])
+    if "follow_instability" in options:
+        kwargs["follow_instability"] = bool(options["follow_instability"])
     return RunOptions(**kwargs)
 
 
@@ -158,7 +162,7 @@ def method_for(job: Job, labels: list[str]) -> MethodSpec:
     Roots given in the file are a lower bound: a task that asks for a higher state gets the
     roots it needs, and the log says so.
     """
-    spec = prepare_method(job.method, labels)
+    spec = prepare_method(job.method, labels, job.molecule)
     if "roots" in job.method_keys and spec.roots > job.method.roots:
         log.info("roots raised from %d to %d to cover %s", job.method.roots, spec.roots,
                  ", ".join(labels))
@@ -292,13 +296,15 @@ def validate_job(job: Job) -> None:
         try:
             labels = parse_states(task_labels(task.kind, task.options))
             check_labels(job.molecule, labels)
-            prepare_method(job.method, labels)
+            prepare_method(job.method, labels, job.molecule,
+                           strict_roots="roots" in job.method_keys)
             if task.kind == "cross" or (task.kind == "scan" and task.options.get("along_seam")):
                 from ..tasks.crossing import check_high_spin_pair
 
                 check_high_spin_pair(labels, job.method)
             if task.kind in ("relax", "cross", "emission", "scan"):
-                run_options_from_task(task.options)
+                for c in run_options_from_task(task.options).constraints:
+                    c.check(job.molecule.natom)
         except InputError as exc:
             raise InputError(f"{where}: {exc}") from None
         if not kind_available(task.kind):

@@ -18,13 +18,15 @@ from .common import RunOptions
 __all__ = ["build_engine", "build_coordinates", "build_optimizer", "tracking_options"]
 
 
-def build_engine(spec: MethodSpec, run_dir: Any = None, *, warm_start: bool = True):
+def build_engine(spec: MethodSpec, run_dir: Any = None, *, warm_start: bool = True,
+                 follow_instability: bool = False):
     """The engine for ``spec``; PySCF output goes into the run directory's log file."""
     kwargs: dict[str, Any] = {}
     if run_dir is not None:
         kwargs["log_path"] = str(run_dir.pyscf_log)
     if spec.method != "casscf":
         kwargs["warm_start"] = bool(warm_start)
+        kwargs["stability"] = "follow" if follow_instability else "report"
     return make_engine(spec, **kwargs)
 
 

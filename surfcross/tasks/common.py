@@ -21,7 +21,7 @@ from ..states import SINGLET, TRIPLET, StateLabel, parse_states
 from ..units import HARTREE_IN_EV
 
 __all__ = ["RunOptions", "TaskResult", "prepare_method", "COORDINATES", "CONVERGENCE_PRESETS",
-           "method_warnings", "LIMITS_NOTE"]
+           "method_warnings", "LIMITS_NOTE", "check_request"]
 
 log = logging.getLogger(__name__)
 
@@ -59,6 +59,10 @@ class RunOptions:
         After a minimization, compute the finite-difference Hessian and frequencies of the
         state (6N gradient evaluations); with ``follow_imaginary`` displace along an
         imaginary mode and continue.
+    follow_instability
+        When the internal stability analysis finds the warm-started SCF reference unstable
+        mid-run, move to the lower SCF solution and continue there (default: report it with
+        the remedies and stay on the followed solution).
     """
 
     coordinates: str = "auto"
@@ -75,6 +79,7 @@ class RunOptions:
     follow_imaginary: bool = False
     warm_start: bool = True
     characterize: bool = True
+    follow_instability: bool = False
 
     def __post_init__(self) -> None:
         if self.coordinates not in COORDINATES:
@@ -153,9 +158,17 @@ class TaskResult:
         return dict(self.data)
 
 
-def prepare_method(spec: MethodSpec, labels: Iterable[StateLabel | str]) -> MethodSpec:
-    """The method with enough roots for ``labels`` (two above the highest state asked)."""
+def prepare_method(spec: MethodSpec, labels: Iterable[StateLabel | str],
+                   geometry: Geometry | None = None, *, strict_roots: bool = False) -> MethodSpec:
+    """The method with enough roots for ``labels`` (two above the highest state asked).
+
+    With ``geometry`` the request is checked first (:func:`check_request`: InputError for
+    states or active spaces the basis cannot give, and with ``strict_roots`` for more roots
+    than there are) and the roots are capped at the number of excitations there are.
+    """
     labels = parse_states(list(labels))
+    room = (check_request(geometry, spec, labels, strict_roots=strict_roots)
+            if geometry is not None else None)
     roots, troots = spec.roots, spec.triplet_roots
     for lab in labels:
         if lab.manifold == TRIPLET:
@@ -175,7 +188,78 @@ def prepare_method(spec: MethodSpec, labels: Iterable[StateLabel | str]) -> Meth
                 roots = max(roots, lab.index + 2)
     if spec.triplets == "high-spin":
         troots = min(troots, 1)
+    if room is not None:
+        if roots > room or (troots > room and spec.triplets != "high-spin"):
+            log.info("roots capped at %d: the basis gives no more excited states", room)
+        roots = min(roots, room)
+        if spec.triplets != "high-spin":
+            troots = min(troots, room)
     return spec.with_updates(roots=roots, triplet_roots=troots)
+
+
+def _formula(geometry: Geometry) -> str:
+    counts: dict[str, int] = {}
+    for s in geometry.symbols:
+        counts[s] = counts.get(s, 0) + 1
+    return "".join(s + (str(n) if n > 1 else "") for s, n in counts.items())
+
+
+def check_request(geometry: Geometry, spec: MethodSpec,
+                  labels: Sequence[StateLabel | str] = (),
+                  constraints: Sequence[Constraint] = (), *, strict_roots: bool = True) -> int:
+    """Refuse, before any SCF, what this molecule and basis cannot give.
+
+    Counts the reference's occupied x virtual orbitals on the PySCF molecule (no SCF): a
+    state beyond that number of excitations, more roots than there are (``strict_roots``;
+    otherwise the caller caps them), an active space or a number of CASSCF states that does
+    not fit, or a frozen/held atom that does not exist is an :class:`InputError` naming what
+    is possible. Returns the number of excited states the method can give per manifold.
+    """
+    from ..engine.pyscf_scf import capacity
+
+    labels = parse_states(list(labels))
+    check_labels(geometry, labels)
+    for c in constraints:
+        c.check(geometry.natom)
+    room = capacity(geometry, spec)
+    where = f"{_formula(geometry)} in {spec.basis}"
+    if spec.method == "casscf":
+        return _check_active_space(geometry, spec, labels, room, where)
+    most = room.excitations
+    asked = [lab for lab in labels if not lab.is_reference
+             and not (lab.manifold == TRIPLET and spec.triplets == "high-spin")]
+    for lab in asked:
+        if lab.index > most:
+            first = "1" if lab.manifold == "" else f"{lab.manifold}1"
+            raise InputError(f"state {lab} does not exist for {where}: it has {room.describe()}, "
+                             f"so the states go up to {lab.manifold}{most}; ask for {first}.."
+                             f"{lab.manifold}{most} or use a larger basis")
+    for name, n in (("roots", spec.roots), ("triplet roots", spec.triplet_roots)):
+        if strict_roots and n > most and not (name == "triplet roots"
+                                              and spec.triplets == "high-spin"):
+            raise InputError(f"{n} {name} asked, but {where} has {room.describe()}: ask for at "
+                             f"most {most} or use a larger basis")
+    return most
+
+
+def _check_active_space(geometry: Geometry, spec: MethodSpec, labels: Sequence[StateLabel],
+                        room: Any, where: str) -> int:
+    electrons, orbitals = spec.active_space
+    core2 = geometry.nelectron - electrons
+    if core2 < 0 or core2 % 2:
+        raise InputError(f"an active space of {electrons} electrons does not fit the "
+                         f"{geometry.nelectron} electrons of {where} with a doubly occupied core")
+    if core2 // 2 + orbitals > room.orbitals:
+        raise InputError(f"{where} has {room.orbitals} orbitals, too few for {core2 // 2} core "
+                         f"plus {orbitals} active orbitals: use at most "
+                         f"{room.orbitals - core2 // 2} active orbitals or a larger basis")
+    most = int(room.active_states) - 1
+    top = max([spec.roots] + [lab.index for lab in labels])
+    if top > most:
+        raise InputError(f"CASSCF({electrons},{orbitals}) has {most + 1} singlet states "
+                         f"(S0..S{most}), so S{top} cannot be computed: ask for fewer roots or "
+                         "a larger active space")
+    return most
 
 
 def check_labels(geometry: Geometry, labels: Sequence[StateLabel]) -> None:

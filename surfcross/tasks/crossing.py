@@ -19,7 +19,7 @@ from ..objectives.searches import (choose_search, default_settings, make_crossin
 from ..states import StateLabel, parse_states
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
 from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
-from .run import finish_task, run_optimization, task_spec
+from .run import final_stability, finish_task, run_optimization, task_spec
 
 __all__ = ["find_crossing", "characterize"]
 
@@ -55,12 +55,24 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     labels = parse_states(states, count=2)
     check_labels(geometry, labels)
     check_high_spin_pair(labels, method)
-    spec = prepare_method(method, labels)
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    spec = prepare_method(method, labels, geometry)  # impossible requests: before any SCF
+    args = (geometry, labels, spec, search, options, run_dir, observers, progress,
+            resume_state, gap_tolerance_eh)
+    if engine is not None:
+        return _find_crossing(*args, engine=engine)
+    with build_engine(spec, run_dir, warm_start=options.warm_start,  # closed at the end
+                      follow_instability=options.follow_instability) as own:
+        return _find_crossing(*args, engine=own)
+
+
+def _find_crossing(geometry: Geometry, labels: Sequence[StateLabel], spec: MethodSpec,
+                   search: str, options: RunOptions, run_dir: Any, observers: Iterable[Callable],
+                   progress: bool, resume_state: dict | None, gap_tolerance_eh: float | None, *,
+                   engine: Any) -> TaskResult:
     symmetry = pair_symmetry(engine, geometry, labels) if resume_state is None else None
-    one_dimensional = _one_dimensional(labels, method) or \
+    one_dimensional = _one_dimensional(labels, spec) or \
         (symmetry is not None and symmetry.get("can_mix") is False)
-    name = choose_search(labels, search, method, symmetry)
+    name = choose_search(labels, search, spec, symmetry)
     settings = default_settings(name, _gap_preset(options))
     if gap_tolerance_eh is not None:
         if not gap_tolerance_eh > 0:
@@ -80,6 +92,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                           gap_tolerance_eh=settings.gap_tol_eh)
     result = run_optimization(optimizer, geometry, run_dir, spec_dict, observers=observers,
                               progress=progress, resume_state=resume_state)
+    stability = final_stability(engine, result)  # before the probe moves the engine on
     searched = list(getattr(objective, "warnings", ()))
     searched += _symmetry_notes(symmetry, name, labels)
     warnings = [w for w in method_warnings(spec, labels)  # one reference-state caveat is enough
@@ -106,6 +119,7 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
                                 "crossing, not a true intersection")
     if result.value.evaluation is not None:
         warnings += list(result.value.evaluation.warnings)
+    warnings += stability
     data["verification"] = verification_record(objective, result)
     if symmetry is not None and symmetry.get("can_mix") is False:
         data["verification"]["symmetry"] = (

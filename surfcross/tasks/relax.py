@@ -12,9 +12,9 @@ from ..geometry import Geometry
 from ..objectives.single import SingleStateObjective
 from ..states import StateLabel, parse_state
 from .build import build_coordinates, build_engine, build_optimizer, tracking_options
-from .common import RunOptions, TaskResult, check_labels, method_warnings, prepare_method
+from .common import RunOptions, TaskResult, method_warnings, prepare_method
 from ..units import BOHR_IN_ANGSTROM
-from .run import finish_task, run_optimization, task_spec
+from .run import final_stability, finish_task, run_optimization, task_spec
 
 __all__ = ["relax"]
 
@@ -52,9 +52,19 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         ``converged`` False with status 'step limit reached' is a normal outcome, not an error.
     """
     label = parse_state(state)
-    check_labels(geometry, [label])
-    spec = prepare_method(method, [label])
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    spec = prepare_method(method, [label], geometry)  # impossible requests: before any SCF
+    if engine is not None:
+        return _relax(geometry, label, spec, options, run_dir, observers, progress, engine,
+                      resume_state)
+    with build_engine(spec, run_dir, warm_start=options.warm_start,
+                      follow_instability=options.follow_instability) as own:
+        return _relax(geometry, label, spec, options, run_dir, observers, progress, own,
+                      resume_state)
+
+
+def _relax(geometry: Geometry, label: StateLabel, spec: MethodSpec, options: RunOptions,
+           run_dir: Any, observers: Iterable[Callable], progress: bool, engine: Any,
+           resume_state: dict | None) -> TaskResult:
     warnings = method_warnings(spec, [label])
     data: dict[str, Any] = {}
     start = geometry if resume_state else _at_targets(geometry, options)
@@ -83,9 +93,9 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         warnings.append(note + "; displaced along the mode and minimized again")
         mode = curvature.modes[int(curvature.frequencies_cm.argmin())]
         start = displace_along(result.geometry, mode, IMAGINARY_DISPLACEMENT)
-    warnings += [f"tracking: {r}" for r in reorderings]
     if result.value.evaluation is not None:
         warnings += list(result.value.evaluation.warnings)
+    warnings += final_stability(engine, result)
     return finish_task("relax", result, [label], spec, run_dir, warnings=warnings, data=data,
                        reorderings=reorderings)
 

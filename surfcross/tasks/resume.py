@@ -12,6 +12,7 @@ from ..geometry import Geometry
 from ..io.run import RunDirectory
 from ..optimize.records import Status
 from .common import RunOptions, TaskResult
+from .run import INTERRUPTED
 
 __all__ = ["resume", "method_from_dict"]
 
@@ -48,7 +49,7 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
                               "start the task again")
     method = method_from_dict(task["method"])
     options = RunOptions.from_dict(task.get("options", {}))
-    if more_steps is not None or (Path(path) / "result.json").exists():
+    if more_steps is not None or _status(Path(path)) == Status.STEP_LIMIT.value:
         budget = more_steps if more_steps is not None else options.max_iterations
         options = options.with_updates(max_iterations=data.iteration + budget)
     start: Geometry = data.geometry
@@ -67,21 +68,26 @@ def resume(path: str | Path, *, progress: bool = True, more_steps: int | None = 
     raise CheckpointError(f"{path}: cannot resume a task of kind {kind!r}")
 
 
+def _status(path: Path) -> str | None:
+    """The status in a run folder's result.json (None without one)."""
+    try:
+        return json.loads((path / "result.json").read_text(encoding="utf-8")).get("status")
+    except (OSError, ValueError, AttributeError):
+        return None
+
+
 def _check_unfinished(path: Path) -> None:
-    """A run with result.json may only be continued when it stopped at its step limit."""
+    """A run with result.json may only be continued when it stopped at its step limit or was
+    interrupted."""
     if not (path / "checkpoint.h5").exists():
         inner = sorted(p.parent.name for p in path.glob("*/checkpoint.h5"))
         if inner:  # a job or workflow folder: its optimizations sit one level down
             raise CheckpointError(f"{path} holds several runs; resume one of them: "
                                   + ", ".join(str(path / name) for name in inner))
-    result = path / "result.json"
-    if not result.exists():
+    if not (path / "result.json").exists():
         return
-    try:
-        status = json.loads(result.read_text(encoding="utf-8")).get("status")
-    except (OSError, ValueError, AttributeError):
-        status = None
-    if status == Status.STEP_LIMIT.value:
+    status = _status(path)
+    if status in (Status.STEP_LIMIT.value, INTERRUPTED):
         return
     if status == Status.CONVERGED.value:
         raise CheckpointError(f"{path}: this run already converged; nothing to continue")

@@ -8,13 +8,20 @@ from typing import Any, Callable, Iterable, Mapping
 
 from ..engine.base import MethodSpec
 from ..geometry import Geometry
+from ..io.results import reorderings as reordering_notes
 from ..io.results import result_dict
 from ..errors import BackTransformError, EngineError, StateTrackingError
 from ..optimize import OptimizationResult, Status
 from ..states import StateLabel
 from .common import RunOptions, TaskResult
 
-__all__ = ["task_spec", "run_optimization", "finish_task", "STOP_REQUEST", "request_stop"]
+__all__ = ["task_spec", "run_optimization", "finish_task", "final_stability", "STOP_REQUEST",
+           "request_stop", "INTERRUPTED"]
+
+#: result.json status of a run stopped by the user (Ctrl-C) or a stop request
+INTERRUPTED = "interrupted"
+#: marks run-level messages of the engine's stability analysis (collected from every step)
+_STABILITY_TAG = "(internal stability analysis)"
 
 log = logging.getLogger(__name__)
 
@@ -68,12 +75,58 @@ def run_optimization(optimizer: Any, geometry: Geometry, run_dir: Any, spec: Map
     except KeyboardInterrupt as exc:  # tell the command line which folder to resume
         if run_dir is not None and getattr(exc, "run_dir", None) is None:
             exc.run_dir = run_dir.path
+            _write_interrupted(optimizer, run_dir, spec)
         raise
     except (EngineError, StateTrackingError, BackTransformError) as exc:
         accepted = [r for r in getattr(optimizer, "history", ()) if r.accepted]
         if not accepted:
             raise  # nothing computed yet: the start geometry or the settings are at fault
         return _failed_result(optimizer, accepted[-1], exc)
+
+
+def _write_interrupted(optimizer: Any, run_dir: Any, spec: Mapping[str, Any]) -> None:
+    """result.json, final.xyz and report.md of a run stopped by the user, at its last
+    accepted step, with status 'interrupted' and the command that continues it."""
+    history = tuple(getattr(optimizer, "history", ()))
+    accepted = [r for r in history if r.accepted]
+    if not accepted:
+        return
+    last = accepted[-1]
+    command = f"surfcross resume {run_dir.path}"
+    result = OptimizationResult(
+        status=Status.STOPPED, geometry=last.geometry, value=last.value,
+        message=f"interrupted after step {last.iteration}; continue with: {command}",
+        iterations=last.iteration, evaluations=int(getattr(optimizer, "evaluations", 0)),
+        history=history, warnings=tuple(getattr(optimizer, "warnings", ())))
+    try:
+        out = result_dict(task=str(spec.get("kind", "task")), result=result,
+                          states=list(spec.get("states", ())), method=spec.get("method", {}),
+                          search=spec.get("search"))
+        out.update(status=INTERRUPTED, converged=False, resume_command=command)
+        out["warnings"] = list(dict.fromkeys(out["warnings"] + stability_warnings(history)))
+        run_dir.finish(out, last.geometry, criteria=last.criteria,
+                       reorderings=reordering_notes(history))
+    except Exception as exc:  # the interruption must still reach the user
+        log.warning("could not write the record of the interrupted run: %s", exc)
+
+
+def stability_warnings(history: Iterable[Any]) -> list[str]:
+    """Distinct SCF-stability warnings of the engine evaluations of accepted steps."""
+    found: list[str] = []
+    for rec in history:
+        evaluation = getattr(rec.value, "evaluation", None) if rec.accepted else None
+        for w in getattr(evaluation, "warnings", ()) or ():
+            if _STABILITY_TAG in w and w not in found:
+                found.append(w)
+    return found
+
+
+def final_stability(engine: Any, result: OptimizationResult) -> list[str]:
+    """Stability analysis of the reference at the end point (when the engine has one)."""
+    check = getattr(engine, "check_reference", None)
+    if check is None or result.value.evaluation is None:
+        return []
+    return list(check(result.value.evaluation))
 
 
 def _failed_result(optimizer: Any, last: Any, exc: Exception) -> OptimizationResult:
@@ -104,7 +157,7 @@ def finish_task(kind: str, result: OptimizationResult, labels: Iterable[StateLab
     method_dict = out["method"]
     method_dict.update({"charge": result.geometry.charge, "spin": result.geometry.spin})
     seen = list(out["warnings"])
-    for w in warnings:
+    for w in list(warnings) + stability_warnings(result.history):
         if w not in seen:
             seen.append(w)
     out["warnings"] = seen

@@ -10,7 +10,7 @@ from ..geometry import Geometry
 from ..io.report import method_limits, render_report
 from ..io.results import write_json_atomic
 from .build import build_engine
-from .common import TaskResult
+from .common import TaskResult, prepare_method
 
 __all__ = ["compute_states"]
 
@@ -19,6 +19,8 @@ def compute_states(geometry: Geometry, method: MethodSpec, *, run_dir: Any = Non
                    engine: Any = None, source: str = "") -> TaskResult:
     """Energies, oscillator strengths and transitions of all states at ``geometry``."""
     own = engine is None
+    if own:  # impossible requests before any SCF; roots capped at the excitations there are
+        method = prepare_method(method, [], geometry)
     engine = engine or build_engine(method, run_dir)
     try:
         evaluation: Evaluation = engine.states(geometry)
@@ -28,7 +30,9 @@ def compute_states(geometry: Geometry, method: MethodSpec, *, run_dir: Any = Non
     summary = vertical_summary(evaluation, method, source=source)
     data = {"task": "states", "converged": True, "status": "finished", "iterations": 0,
             "evaluations": 1, "states": [str(s.label) for s in evaluation.states],
-            "energies_eh": evaluation.energies(), "gap_ev": None, "final_xyz": "final.xyz",
+            "energies_eh": evaluation.energies(), "adiabatic_energies_eh": evaluation.energies(),
+            "followed_roots": {str(s.label): str(s.label) for s in evaluation.states},
+            "gap_ev": None, "final_xyz": "final.xyz",
             "method": {**method.to_dict(), "charge": geometry.charge, "spin": geometry.spin},
             "search": None, "warnings": list(evaluation.warnings), "vertical": summary}
     if run_dir is not None:

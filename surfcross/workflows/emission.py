@@ -144,9 +144,10 @@ def emission(geometry: Geometry, method: MethodSpec, *, state: str | StateLabel 
     if label.is_reference:
         raise InputError(f"{label} is the ground (reference) state: choose an excited state "
                          "to emit from, e.g. S1")
-    spec = prepare_method(method, [label])
+    spec = prepare_method(method, [label], geometry)
     own = engine is None
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start,
+                                    follow_instability=options.follow_instability)
     try:
         return _run(geometry, spec, label, options, relax_ground, zero_point, run_dir,
                     progress, engine)
@@ -261,7 +262,11 @@ def _states_table(rows: list[dict[str, Any]]) -> str:
     return "\n".join(lines)
 
 
-def _summary_text(data: Mapping[str, Any]) -> str:
+def _summary_text(data: Mapping[str, Any], label: StateLabel) -> str:
+    def root(key: str) -> str:
+        return (f"{label}, adiabatic root {data[key]} there" if data[key] != str(label)
+                else str(label))
+
     def nm(x: Any) -> str:
         return "-" if x is None else f"{x:.1f} nm"
 
@@ -269,10 +274,10 @@ def _summary_text(data: Mapping[str, Any]) -> str:
         return "-" if x is None else f"{x:.4f}"
 
     lines = [
-        f"- Vertical absorption ({data['absorption_root']} at the Franck-Condon point): "
+        f"- Vertical absorption ({root('absorption_root')} at the Franck-Condon point): "
         f"{data['absorption_ev']:.4f} eV, {nm(data['absorption_nm'])}, f = "
         f"{f(data['absorption_oscillator_strength'])}",
-        f"- Vertical emission ({data['emission_root']} at the excited-state minimum): "
+        f"- Vertical emission ({root('emission_root')} at the excited-state minimum): "
         f"{data['emission_ev']:.4f} eV, {nm(data['emission_nm'])}, f = "
         f"{f(data['emission_oscillator_strength'])}",
         f"- Adiabatic energy (minimum to minimum): {data['adiabatic_ev']:.4f} eV",
@@ -314,8 +319,9 @@ def _finish(geometry: Geometry, spec: MethodSpec, label: StateLabel, options: Ru
     out = {
         "task": "emission", "converged": converged, "status": status, "message": message,
         "iterations": sum(r.iterations for r in stages), "evaluations": evaluations,
-        "states": [str(label)], "energies_eh": em_eval.energies(),
-        "target_energies_eh": {str(label): data["excited_minimum_eh"]},
+        "states": [str(label)], "energies_eh": {str(label): data["excited_minimum_eh"]},
+        "adiabatic_energies_eh": em_eval.energies(),
+        "followed_roots": {str(label): str(data["emission_root"])},
         "gap_ev": None, "method": {**spec.to_dict(), "charge": geometry.charge,
                                    "spin": geometry.spin},
         "search": None, "warnings": warnings, **data,
@@ -323,10 +329,15 @@ def _finish(geometry: Geometry, spec: MethodSpec, label: StateLabel, options: Ru
             stage_summary(name, r) for name, r in (("ground", ground), ("excited", excited))
             if r is not None],
     }
-    sections = [("Photophysics", _summary_text(data)),
+    order = "adiabatic roots in energy order; the followed {} is root {} there"
+    sections = [("Photophysics", _summary_text(data, label)),
                 ("What these numbers are", SPECTRA_NOTE),
-                ("Vertical states at the Franck-Condon point", _states_table(data["absorption_states"])),
-                ("Vertical states at the excited-state minimum", _states_table(data["emission_states"])),
+                ("Vertical states at the Franck-Condon point ("
+                 + order.format(label, data["absorption_root"]) + ")",
+                 _states_table(data["absorption_states"])),
+                ("Vertical states at the excited-state minimum ("
+                 + order.format(label, data["emission_root"]) + ")",
+                 _states_table(data["emission_states"])),
                 ("Stages", "\n".join(f"- {s['stage']}: {s['status']}, {s['iterations']} steps, "
                                      f"{s['evaluations']} evaluations, folder `{s['run_dir']}`"
                                      for s in out["stages"]))]

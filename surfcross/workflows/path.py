@@ -190,9 +190,11 @@ def _profile(evaluations: Sequence[Evaluation], roots: dict[str, list[str]], x: 
     }
 
 
-def _write_trajectory(run_dir: Any, evaluations: Sequence[Evaluation], x: np.ndarray) -> None:
+def _write_trajectory(run_dir: Any, evaluations: Sequence[Evaluation], x: np.ndarray,
+                      roots: dict[str, list[str]]) -> None:
+    """One frame per point; energies of the connected states under their first-point names."""
     comments = [" ".join([f"step={i}", f"x={x[i]:.6f}"]
-                         + [f"E_{k}={v:.10f}" for k, v in ev.energies().items()])
+                         + [f"E_{k}={ev.energy(rs[i]):.10f}" for k, rs in roots.items()])
                 for i, ev in enumerate(evaluations)]
     write_xyz(run_dir.trajectory_xyz, [ev.geometry for ev in evaluations], comments)
 
@@ -228,7 +230,7 @@ def pathway(geometries: Sequence[Geometry], method: MethodSpec, *, images: int =
     if len(geometries) < 2:
         raise InputError("a pathway needs at least two geometries")
     labels = parse_states(list(show)) if show else ()
-    spec = prepare_method(method, labels) if labels else method
+    spec = prepare_method(method, labels, geometries[0])
     points, given, used, notes = _build_points(geometries, images, interpolation, mass_weighted)
     first = geometries[0]
     own = engine is None
@@ -252,7 +254,9 @@ def pathway(geometries: Sequence[Geometry], method: MethodSpec, *, images: int =
     out = {"task": "path", "converged": True, "status": "finished", "message": "",
            "iterations": 0, "evaluations": len(evaluations),
            "states": [str(s.label) for s in evaluations[0].states],
-           "energies_eh": last.energies(), "gap_ev": None,
+           "energies_eh": {k: last.energy(rs[-1]) for k, rs in roots.items()},
+           "adiabatic_energies_eh": last.energies(),
+           "followed_roots": {k: rs[-1] for k, rs in roots.items()}, "gap_ev": None,
            "method": {**spec.to_dict(), "charge": first.charge, "spin": first.spin},
            "search": None, "warnings": warnings, "profile": profile,
            "character_changes": swaps}
@@ -268,7 +272,7 @@ def pathway(geometries: Sequence[Geometry], method: MethodSpec, *, images: int =
 
 def _record(run_dir: Any, out: dict[str, Any], evaluations: Sequence[Evaluation], x: np.ndarray,
             profile: dict[str, Any], show: Sequence[str], swaps: Sequence[str]) -> dict[str, Any]:
-    _write_trajectory(run_dir, evaluations, x)
+    _write_trajectory(run_dir, evaluations, x, profile["connected_roots"])
     keep = [str(s) for s in parse_states(list(show))] if show else list(profile["connected_ev"])
     xlabel = f"path length / {profile['x_unit']}"
     adiabatic_png = plot_profile(run_dir.path / "profile_adiabatic.png", x,

@@ -114,7 +114,7 @@ def _row(mode: str, value: float, atoms: Sequence[int], res: TaskResult,
     row = {"value": value, "achieved": coordinate_value(res.geometry, atoms),
            "converged": res.converged, "iterations": res.iterations,
            "evaluations": res.evaluations, "roots": [str(r) for r in roots],
-           "energies_eh": ev.energies(),
+           "adiabatic_energies_eh": ev.energies(),
            "run_dir": None if res.run_dir is None else res.run_dir.name}
     if mode == "seam":
         lower, upper = (ev.energy(r) for r in roots)
@@ -166,7 +166,7 @@ def _rigid(geometry: Geometry, atoms: Sequence[int], values: Sequence[float],
         evaluations.append(engine.states(current))
     roots, notes = connect_roots(engine, evaluations)
     rows = [{"value": v, "achieved": coordinate_value(ev.geometry, atoms), "converged": True,
-             "iterations": 0, "evaluations": 1, "energies_eh": ev.energies(),
+             "iterations": 0, "evaluations": 1, "adiabatic_energies_eh": ev.energies(),
              "roots": {name: rs[i] for name, rs in roots.items()}, "run_dir": None}
             for i, (v, ev) in enumerate(zip(values, evaluations))]
     return rows, evaluations, roots, notes
@@ -175,12 +175,12 @@ def _rigid(geometry: Geometry, atoms: Sequence[int], values: Sequence[float],
 def _profile(mode: str, rows: list[dict[str, Any]], atoms: Sequence[int], followed_name: str | None,
              followed_eh: list[float] | None, connected: dict[str, list[float]] | None) -> dict[str, Any]:
     kind = _kind(atoms)
-    first = rows[0]["energies_eh"]
+    first = rows[0]["adiabatic_energies_eh"]
     ref = next((k for k in first if parse_state(k).is_reference), min(first, key=first.get))
     base = first[ref]
     labels = list(first)
-    adiabatic = {lab: [None if r["energies_eh"].get(lab) is None
-                       else (r["energies_eh"][lab] - base) * HARTREE_IN_EV for r in rows]
+    adiabatic = {lab: [None if r["adiabatic_energies_eh"].get(lab) is None
+                       else (r["adiabatic_energies_eh"][lab] - base) * HARTREE_IN_EV for r in rows]
                  for lab in labels}
     profile: dict[str, Any] = {
         "mode": mode, "x": [r["value"] for r in rows], "achieved": [r["achieved"] for r in rows],
@@ -253,9 +253,10 @@ def scan(geometry: Geometry, method: MethodSpec, *, atoms: Sequence[int],
     labels = list(parse_states(along_seam, count=2) if mode == "seam"
                   else [parse_state(state)] if state is not None else [])
     check_labels(geometry, labels)
-    spec = prepare_method(method, labels) if labels else method
+    spec = prepare_method(method, labels, geometry)
     own = engine is None
-    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start)
+    engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start,
+                                    follow_instability=options.follow_instability)
     try:
         if mode == "rigid":
             rows, evaluations, roots, notes = _rigid(geometry, atoms, values, options, engine)
@@ -305,7 +306,7 @@ def _finish(geometry: Geometry, spec: MethodSpec, mode: str, labels: list[StateL
     out = {"task": "scan", "converged": converged, "status": status, "message": message,
            "iterations": sum(r["iterations"] for r in rows),
            "evaluations": sum(r["evaluations"] for r in rows) + (len(rows) if results else 0),
-           "states": [str(s) for s in labels], "energies_eh": last_eval.energies(),
+           "states": [str(s) for s in labels], **_followed_at_end(mode, labels, rows, last_eval),
            "gap_ev": rows[-1].get("gap_ev"),
            "method": {**spec.to_dict(), "charge": geometry.charge, "spin": geometry.spin},
            "search": SEAM_SEARCH if mode == "seam" else None, "warnings": warnings,
@@ -324,12 +325,32 @@ def _finish(geometry: Geometry, spec: MethodSpec, mode: str, labels: list[StateL
                       run_dir=None if run_dir is None else run_dir.path)
 
 
+def _followed_roots(row: dict[str, Any], states: Sequence[str]) -> dict[str, str]:
+    """{followed label: adiabatic root at this point} (a rigid scan follows every state of
+    the first point, named there)."""
+    roots = row["roots"]
+    if isinstance(roots, dict):
+        return {str(k): str(v) for k, v in roots.items()}
+    if len(states) == 2 and len(roots) == 2:  # a seam point lists its pair by energy
+        return dict(zip(states, roots))
+    return {str(states[0]): str(roots[0])} if states else {}
+
+
+def _followed_at_end(mode: str, labels: list[StateLabel], rows: list[dict[str, Any]],
+                     last_eval: Any) -> dict[str, Any]:
+    """energies_eh (followed labels), adiabatic_energies_eh and followed_roots of the last point."""
+    roots = _followed_roots(rows[-1], [str(s) for s in labels])
+    return {"energies_eh": {k: last_eval.energy(r) for k, r in roots.items()},
+            "adiabatic_energies_eh": last_eval.energies(), "followed_roots": roots}
+
+
 def _record(run_dir: Any, out: dict[str, Any], geoms: list[Geometry], rows: list[dict[str, Any]],
             profile: dict[str, Any]) -> dict[str, Any]:
     from ..geometry import write_xyz
 
     comments = [" ".join([f"step={i}", f"value={r['value']:.6f}"]
-                         + [f"E_{k}={v:.10f}" for k, v in r["energies_eh"].items()])
+                         + [f"E_{k}={r['adiabatic_energies_eh'][root]:.10f}"
+                            for k, root in _followed_roots(r, out["states"]).items()])
                 for i, r in enumerate(rows)]
     write_xyz(run_dir.trajectory_xyz, geoms, comments)
     coord = profile["coordinate"]
