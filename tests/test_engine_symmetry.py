@@ -54,6 +54,7 @@ def rotated(geometry, seed=3):
     return geometry.with_coords(geometry.coords_bohr @ rot.T + np.array([0.3, -0.2, 0.5]))
 
 
+@pytest.mark.pyscf
 @pytest.mark.slow
 @pytest.mark.parametrize("name", ["water", "water rotated", "formaldehyde", "ethylene"])
 def test_irreps_match_pyscf(name):
@@ -71,6 +72,7 @@ def test_irreps_match_pyscf(name):
         assert ev.state("S1").irrep == "B1"  # HOMO 1b1 -> LUMO 4a1
 
 
+@pytest.mark.pyscf
 @pytest.mark.slow
 def test_d2_states_grouped_as_pyscf_groups_them():
     # in D2 (a twisted ethylene) the names B1/B2/B3 depend on which two-fold axis is called z,
@@ -99,6 +101,7 @@ def test_small_distortions_keep_the_group_and_large_ones_lower_it():
     assert find_point_group(WATER.symbols, stretched).name == "Cs"
 
 
+@pytest.mark.pyscf
 @pytest.mark.slow
 def test_irreps_survive_a_jitter_of_a_thousandth_of_an_angstrom():
     rng = np.random.default_rng(12)

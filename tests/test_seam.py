@@ -177,6 +177,7 @@ def test_on_a_local_cluster_equals_serial(explored, tmp_path):
         round(c.energy_eh, 5) for c in serial.crossings]
 
 
+@pytest.mark.pyscf
 def test_scan_points_become_starts(tmp_path):
     # a relaxed scan of the first end-atom bond (1-based atoms 1,2) on S1, two points
     plan = StartPlan(plane=0, modes=0, random=0, scan=((0, 1), (1.05, 1.12), "S1"))
@@ -193,6 +194,7 @@ def test_scan_points_become_starts(tmp_path):
         assert min(abs(c.energy_eh - e) for e in known) < 2e-6
 
 
+@pytest.mark.pyscf
 @pytest.mark.slow
 def test_command_line_on_pyscf(tmp_path, capsys):
     from surfcross.cli.main import main
@@ -219,6 +221,7 @@ def test_command_line_on_pyscf(tmp_path, capsys):
     assert x["energy_eh"] == pytest.approx(0.5 * (e_s + e_t), abs=1e-6)
 
 
+@pytest.mark.pyscf
 def test_interrupted_search_continues_from_its_checkpoint(tmp_path, monkeypatch):
     from surfcross.io import run as run_module
     from surfcross.tasks.run import request_stop
@@ -241,7 +244,8 @@ def test_interrupted_search_continues_from_its_checkpoint(tmp_path, monkeypatch)
     first = explore_seam(*args, **kwargs)
     assert first.interrupted
     assert (tmp_path / "s" / "starts" / "given_01" / "checkpoint.h5").exists()
-    assert not (tmp_path / "s" / "starts" / "given_01" / "result.json").exists()
+    # an interrupted run leaves its record with status "interrupted" (and its checkpoint)
+    assert json.loads((tmp_path / "s" / "starts" / "given_01" / "result.json").read_text())["status"] == "interrupted"
     monkeypatch.setattr(run_module.RunDirectory, "observers", original)
     again = explore_seam(*args, **kwargs)
     assert not again.interrupted

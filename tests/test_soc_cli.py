@@ -31,6 +31,7 @@ def _run(*args: str) -> subprocess.CompletedProcess:
                           env=env, text=True, capture_output=True, timeout=120)
 
 
+@pytest.mark.pyscf
 def test_table_shows_the_couplings_with_their_caveat():
     out = _run("--roots", "1", "--soc")
     assert out.returncode == 0, out.stderr

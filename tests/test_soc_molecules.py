@@ -71,6 +71,7 @@ def test_ground_state_selection_rules(cis_couplings):
     assert abs(x) < ZERO_CM and abs(y) < ZERO_CM and abs(z) > 10.0
 
 
+@pytest.mark.pyscf
 def test_couplings_do_not_depend_on_orientation(formaldehyde, cis_couplings):
     _, soc = cis_couplings
     rot = Rotation.from_euler("zyx", [37.0, -61.0, 113.0], degrees=True).as_matrix()
@@ -84,6 +85,7 @@ def test_couplings_do_not_depend_on_orientation(formaldehyde, cis_couplings):
                                    np.abs(after.cartesian_cm), atol=2e-3 * max(1.0, before.total_cm))
 
 
+@pytest.mark.pyscf
 def test_operators_agree_roughly_and_record_themselves(formaldehyde, cis_couplings):
     evaluation, effective = cis_couplings
     mean = spin_orbit_couplings(evaluation, "mean-field", method=CIS)
@@ -102,6 +104,7 @@ def test_operators_agree_roughly_and_record_themselves(formaldehyde, cis_couplin
         "-1", "0", "+1"}
 
 
+@pytest.mark.pyscf
 def test_selection_of_pairs(cis_couplings):
     evaluation, _ = cis_couplings
     soc = spin_orbit_couplings(evaluation, singlets=["S1"], triplets=["T2", "T1"])
@@ -112,6 +115,7 @@ def test_selection_of_pairs(cis_couplings):
         soc.pair("S2", "T1")
 
 
+@pytest.mark.pyscf
 def test_full_response_tddft_keeps_the_selection_rules(formaldehyde):
     spec = sc.MethodSpec(method="tddft", xc="pbe0", basis="sto-3g", roots=1, triplet_roots=2)
     _, soc = spin_orbit_at(formaldehyde, spec)
@@ -121,6 +125,7 @@ def test_full_response_tddft_keeps_the_selection_rules(formaldehyde):
     assert soc.total_cm("S1", "T2") > 5.0
 
 
+@pytest.mark.pyscf
 def test_wrong_kinds_of_evaluation_are_refused(formaldehyde):
     no_triplets = sc.MethodSpec(method="cis", basis="sto-3g", roots=1)
     high_spin = no_triplets.with_updates(triplet_roots=1, triplets="high-spin")

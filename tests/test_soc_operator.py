@@ -33,6 +33,7 @@ def _water(basis="sto-3g"):
     return gto.M(atom=WATER, basis=basis, verbose=0)
 
 
+@pytest.mark.pyscf
 def test_one_electron_integral_sign_by_quadrature():
     """a_k = (alpha^2/2) Z <mu|[grad(1/r_A) x grad]_k|nu> by grid quadrature of the AO
     values and derivatives (PySCF's grids and eval_gto as a general-purpose library)."""
@@ -83,6 +84,7 @@ def _two_electron_on_reference(mol, coeff, nocc):
     return out
 
 
+@pytest.mark.pyscf
 def test_mean_field_is_exact_between_reference_and_single_excitations():
     from pyscf import scf
 
@@ -111,6 +113,7 @@ def test_mean_field_is_exact_between_reference_and_single_excitations():
     assert np.abs(a_mf[:, :nocc, nocc:]).sum() < np.abs(a_one[:, :nocc, nocc:]).sum()
 
 
+@pytest.mark.pyscf
 def test_operator_choice_and_errors():
     assert choose_operator(["C", "H", "O"], "auto") == "effective-charge"
     assert choose_operator(["C", "H", "S"], "auto") == "mean-field"
@@ -128,6 +131,7 @@ def test_operator_choice_and_errors():
         spin_orbit_ao(_water(), "mean-field")
 
 
+@pytest.mark.pyscf
 def test_density_fitted_mean_field_matches_the_exact_one():
     """Fitting the two-electron spin-orbit integrals changes the operator by about 0.1 % of
     its largest element (measured 0.09 % here, 0.11 % for acetone/6-31G*); we allow 0.5 %."""

@@ -67,6 +67,7 @@ RADICAL_CASES = [
 ]
 
 
+@pytest.mark.pyscf
 @pytest.mark.parametrize("atom, shell, reference_cm, operator, tolerance", HALOGEN_CASES)
 def test_halogen_atom_fine_structure(atom, shell, reference_cm, operator, tolerance):
     splitting = _open_shell_splitting(atom, shell, operator)
@@ -76,6 +77,7 @@ def test_halogen_atom_fine_structure(atom, shell, reference_cm, operator, tolera
     assert abs(splitting - reference_cm) < tolerance * reference_cm, splitting
 
 
+@pytest.mark.pyscf
 @pytest.mark.parametrize("atom, shell, reference_cm, operator, tolerance", RADICAL_CASES)
 def test_hydroxyl_and_mercapto_radical_spin_orbit_constant(atom, shell, reference_cm, operator,
                                                            tolerance):
@@ -84,6 +86,7 @@ def test_hydroxyl_and_mercapto_radical_spin_orbit_constant(atom, shell, referenc
     assert abs(a_constant - reference_cm) < tolerance * abs(reference_cm), a_constant
 
 
+@pytest.mark.pyscf
 def test_two_electron_screening_order():
     """Bare nuclear charges overestimate (no two-electron screening); the mean field and the
     effective charges screen (common practice: the screening is about a third for first-row
@@ -127,6 +130,7 @@ def _bare_vs_x2c(atom: str, shell: list[int]) -> tuple[float, float, float]:
 @pytest.mark.parametrize("atom, shell", [("Ar 0 0 0", [2, 3, 4]), ("Ar 0 0 0", [6, 7, 8]),
                                          ("H 0 0 0; Cl 0 0 1.2746", [7, 8]),
                                          ("F 0 0 0; H 0 0 0.917", [3, 4])])
+@pytest.mark.pyscf
 def test_one_electron_operator_against_x2c(atom, shell):
     """First-order Breit-Pauli with bare charges vs the spin-orbit part of PySCF's X2C
     one-electron Hamiltonian (a general-purpose reference library), in the same RHF orbitals.
@@ -136,6 +140,7 @@ def test_one_electron_operator_against_x2c(atom, shell):
     assert deviation < 0.03
 
 
+@pytest.mark.pyscf
 def test_breit_pauli_drifts_from_x2c_for_heavier_atoms():
     """The first-order operator loses accuracy down the periodic table (the documented
     heavy-element caution): for the valence p shell, Kr deviates from X2C more than Ar."""

@@ -89,6 +89,7 @@ def collinear():
 
 
 @needs_extra
+@pytest.mark.pyscf
 def test_states_match_direct_pyscf_forge(collinear):
     _, ev = collinear
     mf, td = _direct(WATER, -1)
@@ -112,6 +113,7 @@ def test_states_match_direct_pyscf_forge(collinear):
 
 
 @needs_extra
+@pytest.mark.pyscf
 def test_spin_square_matches_pyscf_fci(collinear):
     from pyscf.fci import cistring, spin_op
 
@@ -155,6 +157,7 @@ def _directional_check(engine, geometry, labels, directions, h=1e-3):
 
 
 @needs_extra
+@pytest.mark.pyscf
 @pytest.mark.slow
 def test_collinear_gradients_of_s0_and_s1_match_finite_differences():
     rng = np.random.default_rng(11)
@@ -165,6 +168,7 @@ def test_collinear_gradients_of_s0_and_s1_match_finite_differences():
 
 
 @needs_extra
+@pytest.mark.pyscf
 @pytest.mark.slow
 def test_multicollinear_energies_and_gradient():
     spec = SPEC.with_updates(spin_flip_kernel="multicollinear")
@@ -186,6 +190,7 @@ def collinear_t1_gap():
 
 
 @needs_extra
+@pytest.mark.pyscf
 def test_followed_contaminated_state_is_warned_about(collinear):
     engine, ev = collinear
     contaminated = [s for s in ev.manifold("T") if abs(s.spin_square - 2.0) > 0.3]
@@ -197,6 +202,7 @@ def test_followed_contaminated_state_is_warned_about(collinear):
 
 
 @needs_extra
+@pytest.mark.pyscf
 def test_spin_zero_required():
     with make_engine(SPEC) as engine:
         with pytest.raises(InputError, match="spin 0"):

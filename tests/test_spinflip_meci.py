@@ -36,7 +36,7 @@ from surfcross.objectives.searches import (make_crossing_objective,  # noqa: E40
 from surfcross.optimize import ConvergenceSettings, Optimizer, OptimizerSettings  # noqa: E402
 from surfcross.units import BOHR_IN_ANGSTROM  # noqa: E402
 
-pytestmark = pytest.mark.slow
+pytestmark = [pytest.mark.slow, pytest.mark.pyscf]
 
 SPEC = MethodSpec(method="sf-tda", basis="sto-3g", roots=1, grid_level=1)
 

@@ -68,6 +68,7 @@ def _brute_force(mf_bra, x_bra, mf_ket, x_ket, s_ao) -> np.ndarray:
         out += d * np.outer(x_bra[:, u[0], u[1]], x_ket[:, v[0], v[1]])
     return out
 
+@pytest.mark.pyscf
 def test_formula_matches_brute_force_determinants_between_geometries():
     from pyscf import gto
 
@@ -108,6 +109,8 @@ def test_cofactors_and_bordered_determinants_without_division(rank_drop):
                           for q in range(v)] for p in range(v)])
     np.testing.assert_allclose(bordered_determinants(s, n), bordered, atol=1e-12)
 
+
+@pytest.mark.pyscf
 def test_engine_overlaps_are_the_formula_blocks_and_identity_at_equal_geometries():
     pytest.importorskip("pyscf.sftda", reason="needs the optional 'spinflip' extra (pyscf-forge)")
     from surfcross.engine import MethodSpec, make_engine

@@ -175,8 +175,12 @@ class SpinFlipEngine(EngineBase):
         result = run_reference(mol, self.spec, True, dm0)
         mf, cycles = result.mf, result.cycles
         if prev is None:
-            mf, extra = stabilize(mf, self.spec, True)
+            mf, extra, stable = stabilize(mf, self.spec, True)
             cycles += extra
+            if not stable:
+                warnings.append("the M_S = 1 reference stays internally unstable after "
+                                "following its instabilities: the spin-flip states rest on a "
+                                "saddle point of the SCF; try another start geometry or functional")
         self._previous["scf"] = {"mo_coeff": np.array(mf.mo_coeff), "mo_occ": np.array(mf.mo_occ)}
         s2 = float(mf.spin_square()[0])
         if abs(s2 - 2.0) > REFERENCE_S2_DEVIATION:

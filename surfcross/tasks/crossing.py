@@ -55,7 +55,8 @@ def find_crossing(geometry: Geometry, states: str | Sequence[str | StateLabel],
     labels = parse_states(states, count=2)
     check_labels(geometry, labels)
     check_high_spin_pair(labels, method)
-    spec = prepare_method(method, labels, geometry)  # impossible requests: before any SCF
+    # impossible requests: before any SCF (a given engine, e.g. a model, knows its own states)
+    spec = prepare_method(method, labels, geometry if engine is None else None)
     args = (geometry, labels, spec, search, options, run_dir, observers, progress,
             resume_state, gap_tolerance_eh)
     if engine is not None:

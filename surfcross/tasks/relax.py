@@ -52,7 +52,8 @@ def relax(geometry: Geometry, state: str | StateLabel, method: MethodSpec, *,
         ``converged`` False with status 'step limit reached' is a normal outcome, not an error.
     """
     label = parse_state(state)
-    spec = prepare_method(method, [label], geometry)  # impossible requests: before any SCF
+    # impossible requests: before any SCF (a given engine, e.g. a model, knows its own states)
+    spec = prepare_method(method, [label], geometry if engine is None else None)
     if engine is not None:
         return _relax(geometry, label, spec, options, run_dir, observers, progress, engine,
                       resume_state)

@@ -253,8 +253,8 @@ def scan(geometry: Geometry, method: MethodSpec, *, atoms: Sequence[int],
     labels = list(parse_states(along_seam, count=2) if mode == "seam"
                   else [parse_state(state)] if state is not None else [])
     check_labels(geometry, labels)
-    spec = prepare_method(method, labels, geometry)
-    own = engine is None
+    own = engine is None  # a given engine (e.g. a model) knows its own states
+    spec = prepare_method(method, labels, geometry if own else None)
     engine = engine or build_engine(spec, run_dir, warm_start=options.warm_start,
                                     follow_instability=options.follow_instability)
     try:
