@@ -128,6 +128,8 @@ def _search_from_body(name: str, geometry: Geometry, states: Sequence[str],
         return {"name": name, "status": "interrupted", "converged": False, "folder": folder}
     try:
         result = records.read_result(path) if path.exists() else None
+        if result is not None and records.task_status(result) not in records.ENDED_STATUSES:
+            result = None  # an interrupted search keeps a record; it continues below
         task = None
         if result is None and (path / "checkpoint.h5").exists():
             try:
